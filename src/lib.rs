@@ -1,0 +1,13 @@
+//! thiomap: composition maps of sulfur-rich volcanic surfaces from multispectral and
+//! hyperspectral image cubes.
+//!
+//! The library holds the whole pipeline without any command-line concerns:
+//! [`cube`] reads and writes image cubes, [`fits`] is the FITS byte layer, and
+//! [`output`] writes result files atomically. See DEVELOPERS.md for the data flow.
+
+pub mod cube;
+pub mod fits;
+pub mod output;
+
+/// The tool's version, recorded in every provenance file.
+pub const VERSION: &str = env!("CARGO_PKG_VERSION");

@@ -1,0 +1,8 @@
+//! thiomap's integration tests: one binary, a module per topic. Fixtures live in
+//! `tests/fixtures/` with their provenance; malformed inputs are built inside each test.
+
+mod bad_input;
+mod cli;
+mod external;
+mod roundtrip;
+mod support;
