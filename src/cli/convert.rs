@@ -29,6 +29,9 @@ pub struct Args {
     #[arg(long, value_name = "NAME|INDEX")]
     hdu: Option<String>,
 
+    #[command(flatten)]
+    select: super::common::BandArgs,
+
     /// Replace FILE (and its sidecar) if it already exists.
     #[arg(long)]
     overwrite: bool,
@@ -63,8 +66,7 @@ pub fn run(args: Args) -> anyhow::Result<ExitCode> {
             .into());
         }
     }
-    let opts = cube::OpenOptions { hdu: args.hdu };
-    let cube = cube::load(&args.cube, &opts)?;
+    let (cube, _) = args.select.load_cube(&args.cube, args.hdu)?;
     match target {
         Target::Fits => cube::fits::write_cube(&args.out, &cube)?,
         Target::Npy => {

@@ -26,6 +26,9 @@ pub struct Args {
     #[arg(long, value_name = "NAME|INDEX")]
     hdu: Option<String>,
 
+    #[command(flatten)]
+    select: super::common::BandArgs,
+
     /// Print JSON on stdout instead of text (keys: shape [rows, cols, bands], bands
     /// [{centre_um, fwhm_um, min, median, max}], nodata_fraction, …).
     #[arg(long)]
@@ -61,8 +64,7 @@ struct BandReport {
 }
 
 pub fn run(args: Args) -> anyhow::Result<ExitCode> {
-    let opts = cube::OpenOptions { hdu: args.hdu };
-    let cube = cube::load(&args.cube, &opts)?;
+    let (cube, kept) = args.select.load_cube(&args.cube, args.hdu)?;
     let stats = stats::band_stats(cube.data.view(), cube.valid.view());
     let info = &cube.info;
     let nodata = cube.nodata_pixels();
@@ -88,7 +90,7 @@ pub fn run(args: Args) -> anyhow::Result<ExitCode> {
             .zip(&stats)
             .enumerate()
             .map(|(i, (b, s))| BandReport {
-                band: i + 1,
+                band: kept[i] + 1,
                 centre_um: b.centre_um,
                 fwhm_um: b.fwhm_um(),
                 response: match b.response {

@@ -1,8 +1,10 @@
 //! Command-line definitions: one file per command. The only place that knows clap and
 //! prints; each command turns its flags into library calls and formats the results.
 
+mod common;
 mod convert;
 mod inspect;
+mod library;
 
 use std::io::{self, Write};
 use std::process::ExitCode;
@@ -21,7 +23,8 @@ use clap::{Parser, Subcommand};
                   labelled surface units.\n\n\
                   Exit codes: 0 success; 1 finished, but some inputs failed; 2 usage or \
                   input error (the message names the file and what is wrong).",
-    after_help = "Examples:\n  thiomap inspect demo-cubes/ember-rings.fits\n  \
+    after_help = "Examples:\n  thiomap inspect demo-cubes/brimveil-starter.fits\n  \
+                  thiomap library check --bands imager-7\n  \
                   thiomap convert scene.npy --out scene.fits"
 )]
 pub struct Cli {
@@ -33,6 +36,7 @@ pub struct Cli {
 enum Command {
     Inspect(inspect::Args),
     Convert(convert::Args),
+    Library(library::Args),
 }
 
 /// Parses the command line and runs the command.
@@ -41,6 +45,7 @@ pub fn run() -> anyhow::Result<ExitCode> {
     match cli.command {
         Command::Inspect(args) => inspect::run(args),
         Command::Convert(args) => convert::run(args),
+        Command::Library(args) => library::run(args),
     }
 }
 

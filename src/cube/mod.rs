@@ -19,8 +19,10 @@
 //! masked and counted, never an error.
 
 pub mod bands;
+pub mod bandsets;
 pub mod fits;
 pub mod npy;
+pub mod select;
 pub mod stack;
 pub mod stats;
 

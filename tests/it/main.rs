@@ -4,5 +4,7 @@
 mod bad_input;
 mod cli;
 mod external;
+mod library;
+mod library_cli;
 mod roundtrip;
 mod support;

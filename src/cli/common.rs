@@ -1,0 +1,71 @@
+//! Flags shared by several commands, defined once: band selection and the library.
+
+use std::path::PathBuf;
+
+use anyhow::Context as _;
+use thiomap::cube::select::BandSelection;
+use thiomap::library::Library;
+
+/// `--range` and `--exclude-bands`, for every command that takes a cube or a band set.
+#[derive(Debug, Clone, clap::Args)]
+pub struct BandArgs {
+    /// Keep only bands whose centres lie in MIN-MAX, in µm (inclusive), e.g. `0.4-2.5`
+    /// to drop thermal bands. Default: all bands.
+    #[arg(long, value_name = "MIN-MAX", value_parser = BandSelection::parse_range)]
+    range: Option<(f64, f64)>,
+
+    /// Drop bands by number (1-based, as `inspect` lists them), e.g. `1,40-45`.
+    #[arg(long, value_name = "LIST", value_parser = parse_band_list)]
+    exclude_bands: Option<BandList>,
+}
+
+/// A parsed band list (a newtype so clap takes it as one value).
+#[derive(Debug, Clone)]
+pub struct BandList(Vec<usize>);
+
+fn parse_band_list(s: &str) -> Result<BandList, String> {
+    BandSelection::parse_list(s).map(BandList)
+}
+
+impl BandArgs {
+    /// Loads a cube and keeps the selected bands; returns the kept band indices too.
+    pub fn load_cube(
+        &self,
+        path: &std::path::Path,
+        hdu: Option<String>,
+    ) -> anyhow::Result<(thiomap::cube::Cube, Vec<usize>)> {
+        let mut cube = thiomap::cube::load(path, &thiomap::cube::OpenOptions { hdu })?;
+        let kept = self
+            .selection()
+            .apply(&cube.info.bands)
+            .map_err(|e| anyhow::anyhow!("{}: {e}", path.display()))?;
+        cube.select_bands(&kept);
+        Ok((cube, kept))
+    }
+
+    pub fn selection(&self) -> BandSelection {
+        BandSelection {
+            range_um: self.range,
+            exclude: self
+                .exclude_bands
+                .as_ref()
+                .map(|l| l.0.clone())
+                .unwrap_or_default(),
+        }
+    }
+}
+
+/// `--library`, for every command that uses the endmember library.
+#[derive(Debug, Clone, clap::Args)]
+pub struct LibraryArgs {
+    /// A library folder (or its library.toml) to use instead of the embedded default
+    /// starter library.
+    #[arg(long, value_name = "PATH")]
+    library: Option<PathBuf>,
+}
+
+impl LibraryArgs {
+    pub fn load(&self) -> anyhow::Result<Library> {
+        Library::load_or_default(self.library.as_deref()).with_context(|| "loading the library")
+    }
+}
