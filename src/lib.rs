@@ -8,6 +8,7 @@
 //! atomically. See DEVELOPERS.md for the data flow.
 
 pub mod cube;
+pub mod demo;
 pub mod fits;
 pub mod library;
 pub mod output;

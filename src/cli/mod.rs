@@ -3,6 +3,7 @@
 
 mod common;
 mod convert;
+mod demo;
 mod inspect;
 mod library;
 
@@ -36,6 +37,7 @@ pub struct Cli {
 enum Command {
     Inspect(inspect::Args),
     Convert(convert::Args),
+    Demo(demo::Args),
     Library(library::Args),
 }
 
@@ -45,6 +47,7 @@ pub fn run() -> anyhow::Result<ExitCode> {
     match cli.command {
         Command::Inspect(args) => inspect::run(args),
         Command::Convert(args) => convert::run(args),
+        Command::Demo(args) => demo::run(args),
         Command::Library(args) => library::run(args),
     }
 }

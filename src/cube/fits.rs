@@ -12,7 +12,6 @@
 //! Our own keywords: `QUANTITY` (what the samples are, see [`Quantity`]) and `BANDFWHM`.
 //! Description comes from the standard `OBJECT`, `DATE-OBS` and `INSTRUME`.
 
-use std::io::BufWriter;
 use std::path::Path;
 
 use ndarray::{Array2, Array3, Axis};
@@ -23,7 +22,7 @@ use super::{
     Cube, CubeError, CubeInfo, CubeReader, Format, Quantity, Response,
 };
 use crate::fits::header::{Card, Header, Value};
-use crate::fits::write::{write_fits, Extension, ImageData, ImageHdu, TableColumn, TableHdu};
+use crate::fits::write::{Extension, ImageData, ImageHdu, TableColumn, TableHdu};
 use crate::fits::{self, read_elements, FitsError, Hdu, HduKind, Scaling, Source};
 
 /// A FITS file opened for reading one cube HDU.
@@ -422,7 +421,8 @@ impl CubeReader for FitsCube {
 /// Writes a cube as FITS: the samples as the primary HDU (BITPIX −32, axes x, y, band),
 /// the spectral axis as linear WCS when the centres are evenly spaced and the widths equal,
 /// otherwise as `WAVE-TAB` with WAVELENGTH and FWHM columns (µm); spatial WCS cards,
-/// description and backplanes copied through. The file appears whole or not at all.
+/// description and backplanes copied through. The file appears whole or not at all; a
+/// name ending in `.gz` is gzip-compressed.
 pub fn write_cube(path: &Path, cube: &Cube) -> Result<(), crate::output::OutputError> {
     let info = &cube.info;
     let mut cards = Vec::new();
@@ -515,10 +515,7 @@ pub fn write_cube(path: &Path, cube: &Cube) -> Result<(), crate::output::OutputE
         data: ImageData::Cube(cube.data.view()),
         cards,
     };
-    crate::output::atomic::write_with(path, |file| {
-        let mut w = BufWriter::with_capacity(1 << 20, file);
-        write_fits(&mut w, &primary, &extensions)
-    })
+    crate::fits::write::write_file(path, &primary, &extensions)
 }
 
 #[cfg(test)]

@@ -211,3 +211,28 @@ fn pad<W: Write>(w: &mut W, written: usize, fill: u8) -> io::Result<()> {
     let rest = (BLOCK_LEN - written % BLOCK_LEN) % BLOCK_LEN;
     w.write_all(&vec![fill; rest])
 }
+
+/// Writes a FITS file atomically; a name ending in `.gz` is gzip-compressed (with a zero
+/// timestamp, so reruns are byte-identical).
+pub fn write_file(
+    path: &std::path::Path,
+    primary: &ImageHdu,
+    extensions: &[Extension],
+) -> Result<(), crate::output::OutputError> {
+    let gz = path
+        .extension()
+        .is_some_and(|e| e.eq_ignore_ascii_case("gz"));
+    crate::output::atomic::write_with(path, |file| {
+        let buffered = io::BufWriter::with_capacity(1 << 20, file);
+        if gz {
+            let mut enc = flate2::GzBuilder::new()
+                .mtime(0)
+                .write(buffered, flate2::Compression::default());
+            write_fits(&mut enc, primary, extensions)?;
+            enc.finish()?.flush()
+        } else {
+            let mut w = buffered;
+            write_fits(&mut w, primary, extensions)
+        }
+    })
+}

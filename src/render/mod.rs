@@ -1,5 +1,6 @@
-//! Pictures: the colour of spectra ([`colour`]) and spectrum plots ([`plot`]). Map
-//! pictures join as the pipeline grows.
+//! Pictures: the colour of spectra ([`colour`]), map pictures ([`maps`]) and spectrum
+//! plots ([`plot`]).
 
 pub mod colour;
+pub mod maps;
 pub mod plot;

@@ -3,6 +3,7 @@
 
 mod bad_input;
 mod cli;
+mod demo;
 mod external;
 mod library;
 mod library_cli;

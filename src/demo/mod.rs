@@ -1,0 +1,600 @@
+//! Synthetic scenes of Brimveil, a fictional sulfur-volcanic moon, with ground truth —
+//! for trying thiomap, for its accuracy tests and for its benchmarks.
+//!
+//! A scene is a globe on dark sky (sky pixels are no-data) or a map-projected tile, whose
+//! pixels hold linear mixtures of library members laid out by [`world`]. The physics,
+//! stated so the truth can be reasoned about:
+//!
+//! - **Geometry**: orthographic view from the sub-observer point; per pixel incidence i,
+//!   emission e, phase g, latitude, longitude (degrees). A tile is equirectangular
+//!   (latitude 40° S–40° N, longitude 50° W–50° E) with the same angles.
+//! - **Photometry**: the samples are reflectance factor of the mixture times a photometric
+//!   factor P and a topographic shading t: Lambert P = cos i (the default), or
+//!   Lommel–Seeliger P = 2 cos i / (cos i + cos e), both 1 at normal geometry; t is a
+//!   smooth seeded field between 0.85 and 1 (5° cells). P·t is the brightness a shade
+//!   member absorbs. (Lommel–Seeliger exceeds 1 where i < e: a shade cannot brighten, so
+//!   such pixels need photometric normalisation first.)
+//! - **Noise**: per band, SNR = mean surface signal S̄ in that band / σ at S̄, with
+//!   variance σ²(s) = σ_r² + k·s split equally at S̄: σ_r² = k·S̄ = ½ (S̄/SNR)².
+//!   The mean is over sunlit surface pixels.
+//! - **Library mismatch** (optional, ±m): each member's spectrum is multiplied by
+//!   1 + m·sin(2π λ / Λ + φ) with Λ in 1.5–4 µm and φ seeded per member before resampling;
+//!   the truth stays over the library's own members.
+//! - **Hot spots** (optional): pixels on the active vent's floor gain a thermal term
+//!   A·B_λ(650 K)/B_4µm(650 K) with A = 1 (Planck's law), unexplained by any reflectance
+//!   member.
+//!
+//! Randomness comes from one ChaCha8 stream seeded by `seed`, drawn in a fixed order, so
+//! reruns with the same seed are byte-identical.
+
+pub mod files;
+pub mod world;
+
+use ndarray::{Array2, Array3};
+use rand::{Rng, SeedableRng};
+use rand_chacha::ChaCha8Rng;
+
+use crate::cube::{About, Backplane, Backplanes, BandTable, Cube, CubeInfo, Format, Quantity};
+use crate::library::diagnostics::{diagnose, Group, DEFAULT_GROUP_ANGLE_DEG};
+use crate::library::resample::{resample, OutOfCoverage};
+use crate::library::Library;
+
+/// Globe or map-projected tile.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum SceneKind {
+    Globe,
+    Tile,
+}
+
+/// The photometric law.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Law {
+    Lambert,
+    LommelSeeliger,
+}
+
+impl Law {
+    pub fn name(self) -> &'static str {
+        match self {
+            Law::Lambert => "lambert",
+            Law::LommelSeeliger => "lommel-seeliger",
+        }
+    }
+
+    /// The photometric factor, 1 at i = e = 0; 0 on the night side.
+    pub fn factor(self, mu0: f64, mu: f64) -> f64 {
+        if mu0 <= 0.0 {
+            return 0.0;
+        }
+        match self {
+            Law::Lambert => mu0,
+            Law::LommelSeeliger => 2.0 * mu0 / (mu0 + mu.max(0.0)),
+        }
+    }
+}
+
+/// Everything that decides a scene. Check with [`SceneParams::check`].
+#[derive(Debug, Clone, PartialEq)]
+pub struct SceneParams {
+    pub kind: SceneKind,
+    pub rows: usize,
+    pub cols: usize,
+    /// Signal-to-noise ratio at each band's mean surface signal.
+    pub snr: f64,
+    /// Library mismatch amplitude (0 = off; 0.03 = ±3 %).
+    pub mismatch: f64,
+    pub hot_spots: usize,
+    pub seed: u64,
+    pub law: Law,
+    /// Sub-solar point (latitude, longitude), degrees.
+    pub sun: (f64, f64),
+    /// Sub-observer point (latitude, longitude), degrees.
+    pub observer: (f64, f64),
+    /// Whether internal row 0 is drawn at the bottom (FITS) — north is kept up in pictures.
+    pub row0_at_bottom: bool,
+}
+
+impl Default for SceneParams {
+    fn default() -> Self {
+        SceneParams {
+            kind: SceneKind::Globe,
+            rows: 96,
+            cols: 96,
+            snr: 200.0,
+            mismatch: 0.0,
+            hot_spots: 0,
+            seed: 1,
+            law: Law::Lambert,
+            sun: (0.0, 30.0),
+            observer: (0.0, 0.0),
+            row0_at_bottom: true,
+        }
+    }
+}
+
+/// Why a scene cannot be made.
+#[derive(Debug, Clone, PartialEq, thiserror::Error)]
+pub enum DemoError {
+    #[error("--snr {0}: the signal-to-noise ratio must be greater than 0")]
+    Snr(f64),
+    #[error("--size {0}x{1}: a scene needs at least 8 rows and 8 columns")]
+    Size(usize, usize),
+    #[error("{what} ({lat}, {lon}) is off the globe: latitude must lie in −90…90° and longitude in −180…360°")]
+    OffGlobe {
+        what: &'static str,
+        lat: f64,
+        lon: f64,
+    },
+    #[error("--mismatch {0}: must lie in 0–0.5")]
+    Mismatch(f64),
+    #[error("--hot-spots {0}: at most 50")]
+    HotSpots(usize),
+    #[error("{0}")]
+    Coverage(#[from] OutOfCoverage),
+    #[error("the active vent is not in sunlight in this view, so no hot spot can be placed")]
+    NoVentInView,
+}
+
+impl SceneParams {
+    pub fn check(&self) -> Result<(), DemoError> {
+        if !(self.snr.is_finite() && self.snr > 0.0) {
+            return Err(DemoError::Snr(self.snr));
+        }
+        if self.rows < 8 || self.cols < 8 {
+            return Err(DemoError::Size(self.rows, self.cols));
+        }
+        for (what, (lat, lon)) in [
+            ("the sub-solar point", self.sun),
+            ("the sub-observer point", self.observer),
+        ] {
+            if !((-90.0..=90.0).contains(&lat) && (-180.0..=360.0).contains(&lon)) {
+                return Err(DemoError::OffGlobe { what, lat, lon });
+            }
+        }
+        if !(0.0..=0.5).contains(&self.mismatch) {
+            return Err(DemoError::Mismatch(self.mismatch));
+        }
+        if self.hot_spots > 50 {
+            return Err(DemoError::HotSpots(self.hot_spots));
+        }
+        Ok(())
+    }
+}
+
+/// The noise model of one band: σ²(s) = read² + coeff·s.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct BandNoise {
+    pub mean_signal: f64,
+    pub read_sigma: f64,
+    pub signal_coeff: f64,
+}
+
+impl BandNoise {
+    /// Half the variance at the mean signal from each term, so SNR holds at S̄.
+    pub fn for_snr(mean_signal: f64, snr: f64) -> BandNoise {
+        let var = (mean_signal / snr).powi(2);
+        BandNoise {
+            mean_signal,
+            read_sigma: (0.5 * var).sqrt(),
+            signal_coeff: if mean_signal > 0.0 {
+                0.5 * var / mean_signal
+            } else {
+                0.0
+            },
+        }
+    }
+
+    pub fn sigma(&self, signal: f64) -> f64 {
+        (self.read_sigma.powi(2) + self.signal_coeff * signal.max(0.0)).sqrt()
+    }
+}
+
+/// The right answer for every pixel.
+#[derive(Debug, Clone)]
+pub struct Truth {
+    /// Library member ids, in plane order.
+    pub ids: Vec<String>,
+    /// (row, col, member) abundances; NaN on sky.
+    pub abundance: Array3<f32>,
+    /// Unit label (1-based, see [`world::UNITS`]); 0 on sky.
+    pub labels: Array2<i16>,
+    /// Pixels ≥ 2 pixels from any unit boundary, outside transition zones, not hot.
+    pub core: Array2<bool>,
+    pub hot: Array2<bool>,
+    pub noise: Vec<BandNoise>,
+    /// Groups `library check` reports for this band set (default angle).
+    pub groups: Vec<Group>,
+}
+
+/// A generated scene.
+#[derive(Debug, Clone)]
+pub struct Scene {
+    pub cube: Cube,
+    pub truth: Truth,
+}
+
+/// Standard normal deviates by the Box–Muller transform.
+fn normal(rng: &mut ChaCha8Rng) -> f64 {
+    let u1: f64 = 1.0 - rng.gen::<f64>(); // (0, 1]
+    let u2: f64 = rng.gen();
+    (-2.0 * u1.ln()).sqrt() * (std::f64::consts::TAU * u2).cos()
+}
+
+/// Planck's law B_λ(T) up to a constant: λ⁻⁵ / (exp(c₂/λT) − 1), λ in µm.
+pub fn planck_shape(wl_um: f64, t_k: f64) -> f64 {
+    const C2_UM_K: f64 = 14_387.768_775; // second radiation constant hc/k, µm·K (CODATA 2018)
+    wl_um.powi(-5) / ((C2_UM_K / (wl_um * t_k)).exp() - 1.0)
+}
+
+/// Hot-spot temperature, K, and amplitude at 4 µm (reflectance-factor units).
+pub const HOT_SPOT_K: f64 = 650.0;
+pub const HOT_SPOT_AMPLITUDE: f64 = 1.0;
+
+struct Pixel {
+    lat: f64,
+    lon: f64,
+    incidence: f64,
+    emission: f64,
+    phase: f64,
+}
+
+/// Geometry of pixel (r, c), or `None` for sky.
+fn pixel_geometry(p: &SceneParams, r: usize, c: usize) -> Option<Pixel> {
+    let (rows, cols) = (p.rows as f64, p.cols as f64);
+    // y grows northward in pictures; internal rows run bottom-up for FITS.
+    let rr = if p.row0_at_bottom {
+        r as f64 + 0.5
+    } else {
+        rows - (r as f64 + 0.5)
+    };
+    let o = world::unit_vector(p.observer.0, p.observer.1);
+    let s = world::unit_vector(p.sun.0, p.sun.1);
+    let point = match p.kind {
+        SceneKind::Globe => {
+            let radius = rows.min(cols) / 2.0 - 2.0;
+            let x = (c as f64 + 0.5 - cols / 2.0) / radius;
+            let y = (rr - rows / 2.0) / radius;
+            let z2 = 1.0 - x * x - y * y;
+            if z2 < 0.0 {
+                return None;
+            }
+            let z = z2.sqrt();
+            let (la, lo) = (p.observer.0.to_radians(), p.observer.1.to_radians());
+            let east = [-lo.sin(), lo.cos(), 0.0];
+            let north = [-la.sin() * lo.cos(), -la.sin() * lo.sin(), la.cos()];
+            [0, 1, 2].map(|k| x * east[k] + y * north[k] + z * o[k])
+        }
+        SceneKind::Tile => {
+            let lat = -40.0 + 80.0 * rr / rows;
+            let lon = -50.0 + 100.0 * (c as f64 + 0.5) / cols;
+            world::unit_vector(lat, lon)
+        }
+    };
+    let lat = point[2].clamp(-1.0, 1.0).asin().to_degrees();
+    let lon = point[1].atan2(point[0]).to_degrees();
+    Some(Pixel {
+        lat,
+        lon,
+        incidence: world::angle_deg(point, s),
+        emission: world::angle_deg(point, o),
+        phase: world::angle_deg(s, o),
+    })
+}
+
+/// A smooth field in [0, 1] over the sphere: bilinear value noise on 5° cells.
+struct Shading {
+    grid: Vec<f64>,
+}
+
+impl Shading {
+    const NLON: usize = 72;
+    const NLAT: usize = 37;
+
+    fn new(rng: &mut ChaCha8Rng) -> Shading {
+        Shading {
+            grid: (0..Self::NLON * Self::NLAT).map(|_| rng.gen()).collect(),
+        }
+    }
+
+    fn at(&self, lat: f64, lon: f64) -> f64 {
+        let x = (lon.rem_euclid(360.0)) / 5.0;
+        let y = (lat + 90.0) / 5.0;
+        let (x0, y0) = (
+            x.floor() as usize % Self::NLON,
+            (y.floor() as usize).min(Self::NLAT - 2),
+        );
+        let (fx, fy) = (x - x.floor(), y - y0 as f64);
+        let x1 = (x0 + 1) % Self::NLON;
+        let g = |i: usize, j: usize| self.grid[j * Self::NLON + i];
+        let a = g(x0, y0) * (1.0 - fx) + g(x1, y0) * fx;
+        let b = g(x0, y0 + 1) * (1.0 - fx) + g(x1, y0 + 1) * fx;
+        a * (1.0 - fy) + b * fy
+    }
+}
+
+/// The deepest topographic shading: t runs from 1 − this to 1.
+pub const SHADING_DEPTH: f64 = 0.15;
+
+/// Generates a scene of `library` seen through `bands`.
+pub fn generate(
+    p: &SceneParams,
+    library: &Library,
+    bands: &BandTable,
+    instrument: &str,
+) -> Result<Scene, DemoError> {
+    p.check()?;
+    let mut rng = ChaCha8Rng::seed_from_u64(p.seed);
+    let ids: Vec<String> = library.members.iter().map(|m| m.id.clone()).collect();
+    let clean = resample(library, bands)?;
+    let groups = diagnose(&clean, DEFAULT_GROUP_ANGLE_DEG).groups;
+
+    // The spectra the scene is made of: the library, optionally mismatched.
+    let mut used = library.clone();
+    if p.mismatch > 0.0 {
+        for m in &mut used.members {
+            let period = 1.5 + 2.5 * rng.gen::<f64>();
+            let phi = std::f64::consts::TAU * rng.gen::<f64>();
+            for (r, w) in m.reflectance.iter_mut().zip(&m.wavelength_um) {
+                *r *= 1.0 + p.mismatch * (std::f64::consts::TAU * w / period + phi).sin();
+            }
+        }
+    }
+    let e = resample(&used, bands)?.matrix;
+    let shading = Shading::new(&mut rng);
+    let (rows, cols, nb, nm) = (p.rows, p.cols, bands.len(), ids.len());
+
+    let mut abundance = Array3::<f32>::from_elem((rows, cols, nm), f32::NAN);
+    let mut labels = Array2::<i16>::zeros((rows, cols));
+    let mut transition = Array2::<bool>::from_elem((rows, cols), false);
+    let mut brightness = Array2::<f64>::zeros((rows, cols));
+    let mut planes: Backplanes = Backplane::ALL
+        .iter()
+        .map(|b| (*b, Array2::<f32>::from_elem((rows, cols), f32::NAN)))
+        .collect();
+    for r in 0..rows {
+        for c in 0..cols {
+            let Some(px) = pixel_geometry(p, r, c) else {
+                continue;
+            };
+            let (w, trans) = world::unit_weights(px.lat, px.lon);
+            let a = world::abundances(&ids, &w);
+            labels[(r, c)] = world::nearest_unit(&ids, &a) as i16;
+            transition[(r, c)] = trans;
+            for (j, v) in a.iter().enumerate() {
+                abundance[(r, c, j)] = *v as f32;
+            }
+            let t = 1.0 - SHADING_DEPTH * shading.at(px.lat, px.lon);
+            let (mu0, mu) = (
+                px.incidence.to_radians().cos(),
+                px.emission.to_radians().cos(),
+            );
+            brightness[(r, c)] = p.law.factor(mu0, mu) * t;
+            for (plane, v) in [
+                (Backplane::Incidence, px.incidence),
+                (Backplane::Emission, px.emission),
+                (Backplane::Phase, px.phase),
+                (Backplane::Latitude, px.lat),
+                (Backplane::Longitude, px.lon),
+            ] {
+                planes.get_mut(&plane).expect("all planes made")[(r, c)] = v as f32;
+            }
+        }
+    }
+
+    // Noiseless signal.
+    let mut signal = Array3::<f64>::zeros((rows, cols, nb));
+    for r in 0..rows {
+        for c in 0..cols {
+            if labels[(r, c)] == 0 {
+                continue;
+            }
+            for b in 0..nb {
+                let mix: f64 = (0..nm)
+                    .map(|j| abundance[(r, c, j)] as f64 * e[(b, j)])
+                    .sum();
+                signal[(r, c, b)] = brightness[(r, c)] * mix;
+            }
+        }
+    }
+
+    // Hot spots on the active vent's sunlit floor.
+    let mut hot = Array2::<bool>::from_elem((rows, cols), false);
+    if p.hot_spots > 0 {
+        let vent = world::unit_vector(world::ACTIVE_VENT.0, world::ACTIVE_VENT.1);
+        let mut candidates: Vec<(f64, usize, usize)> = Vec::new();
+        for r in 0..rows {
+            for c in 0..cols {
+                if let Some(px) = pixel_geometry(p, r, c) {
+                    let d = world::angle_deg(world::unit_vector(px.lat, px.lon), vent);
+                    if d < 6.0 && px.incidence < 70.0 && px.emission < 70.0 {
+                        candidates.push((d, r, c));
+                    }
+                }
+            }
+        }
+        if candidates.len() < p.hot_spots {
+            return Err(DemoError::NoVentInView);
+        }
+        for _ in 0..p.hot_spots {
+            let k = rng.gen_range(0..candidates.len());
+            let (_, r, c) = candidates.swap_remove(k);
+            hot[(r, c)] = true;
+            let norm = planck_shape(4.0, HOT_SPOT_K);
+            for (b, band) in bands.bands().iter().enumerate() {
+                signal[(r, c, b)] +=
+                    HOT_SPOT_AMPLITUDE * planck_shape(band.centre_um, HOT_SPOT_K) / norm;
+            }
+        }
+    }
+
+    // Noise at the stated SNR.
+    let noise: Vec<BandNoise> = (0..nb)
+        .map(|b| {
+            let (mut sum, mut n) = (0.0, 0usize);
+            for r in 0..rows {
+                for c in 0..cols {
+                    if labels[(r, c)] != 0 && brightness[(r, c)] > 0.0 && !hot[(r, c)] {
+                        sum += signal[(r, c, b)];
+                        n += 1;
+                    }
+                }
+            }
+            BandNoise::for_snr(if n > 0 { sum / n as f64 } else { 0.0 }, p.snr)
+        })
+        .collect();
+    let mut data = Array3::<f32>::from_elem((rows, cols, nb), f32::NAN);
+    for r in 0..rows {
+        for c in 0..cols {
+            if labels[(r, c)] == 0 {
+                continue;
+            }
+            for b in 0..nb {
+                let s = signal[(r, c, b)];
+                data[(r, c, b)] = (s + noise[b].sigma(s) * normal(&mut rng)) as f32;
+            }
+        }
+    }
+
+    let core = core_mask(&labels, &transition, &hot);
+    let valid = labels.mapv(|l| l != 0);
+    let cube = Cube {
+        info: CubeInfo {
+            path: Default::default(),
+            format: if p.row0_at_bottom {
+                Format::Fits { hdu: 0 }
+            } else {
+                Format::Npy
+            },
+            rows,
+            cols,
+            bands: bands.clone(),
+            quantity: Quantity::ReflectanceFactor,
+            spatial_wcs: Vec::new(),
+            about: About {
+                target: Some("Brimveil (fictional; synthetic scene)".into()),
+                time: None,
+                instrument: Some(instrument.to_string()),
+                extra: Default::default(),
+            },
+        },
+        data,
+        valid,
+        nonfinite_samples: 0,
+        backplanes: planes,
+    };
+    Ok(Scene {
+        cube,
+        truth: Truth {
+            ids,
+            abundance,
+            labels,
+            core,
+            hot,
+            noise,
+            groups,
+        },
+    })
+}
+
+/// Core pixels: surface, outside transitions, not hot, and every pixel within two
+/// (Chebyshev distance ≤ 2) on the surface with the same label.
+fn core_mask(labels: &Array2<i16>, transition: &Array2<bool>, hot: &Array2<bool>) -> Array2<bool> {
+    let (rows, cols) = labels.dim();
+    Array2::from_shape_fn((rows, cols), |(r, c)| {
+        let l = labels[(r, c)];
+        if l == 0 || transition[(r, c)] || hot[(r, c)] {
+            return false;
+        }
+        for dr in -2i64..=2 {
+            for dc in -2i64..=2 {
+                let (rr, cc) = (r as i64 + dr, c as i64 + dc);
+                if rr < 0 || cc < 0 || rr >= rows as i64 || cc >= cols as i64 {
+                    return false;
+                }
+                if labels[(rr as usize, cc as usize)] != l {
+                    return false;
+                }
+            }
+        }
+        true
+    })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn measured_noise_matches_the_model_at_a_uniform_signal() {
+        // The noise model as stated: σ² = σ_r² + k s, half of each at the mean signal.
+        let model = BandNoise::for_snr(0.4, 100.0);
+        assert!(
+            (model.sigma(0.4) - 0.004).abs() < 1e-12,
+            "SNR 100 at the mean signal"
+        );
+        let mut rng = ChaCha8Rng::seed_from_u64(7);
+        let s = 0.8; // a brighter uniform patch
+        let n = 20_000;
+        let draws: Vec<f64> = (0..n)
+            .map(|_| s + model.sigma(s) * normal(&mut rng))
+            .collect();
+        let mean = draws.iter().sum::<f64>() / n as f64;
+        let sd = (draws.iter().map(|v| (v - mean).powi(2)).sum::<f64>() / (n - 1) as f64).sqrt();
+        assert!(
+            (sd / model.sigma(s) - 1.0).abs() < 0.10,
+            "{sd} vs {}",
+            model.sigma(s)
+        );
+    }
+
+    #[test]
+    fn planck_peak_follows_wien() {
+        // Wien's displacement law: λ_max T = 2897.77 µm·K (CODATA 2018).
+        let t = 650.0;
+        let peak = (1..2000)
+            .map(|i| 1.0 + 0.005 * i as f64)
+            .max_by(|a, b| planck_shape(*a, t).total_cmp(&planck_shape(*b, t)))
+            .unwrap();
+        assert!((peak * t - 2897.77).abs() < 5.0, "{peak}");
+    }
+
+    #[test]
+    fn bad_parameters_are_refused() {
+        let ok = SceneParams::default();
+        assert!(ok.check().is_ok());
+        assert!(matches!(
+            SceneParams {
+                snr: 0.0,
+                ..ok.clone()
+            }
+            .check(),
+            Err(DemoError::Snr(_))
+        ));
+        assert!(matches!(
+            SceneParams {
+                rows: 0,
+                ..ok.clone()
+            }
+            .check(),
+            Err(DemoError::Size(..))
+        ));
+        assert!(matches!(
+            SceneParams {
+                sun: (95.0, 0.0),
+                ..ok.clone()
+            }
+            .check(),
+            Err(DemoError::OffGlobe { .. })
+        ));
+    }
+
+    #[test]
+    fn incidence_is_zero_at_the_sub_solar_point_and_ninety_on_the_terminator() {
+        // Spherical geometry, common practice: cos i = p·s.
+        let p = SceneParams::default();
+        let s = world::unit_vector(p.sun.0, p.sun.1);
+        assert!(world::angle_deg(s, s).abs() < 1e-9);
+        let terminator = world::unit_vector(0.0, p.sun.1 - 90.0);
+        assert!((world::angle_deg(terminator, s) - 90.0).abs() < 1e-9);
+    }
+}
