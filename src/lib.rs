@@ -12,7 +12,10 @@ pub mod demo;
 pub mod fits;
 pub mod library;
 pub mod output;
+pub mod pipeline;
+pub mod recipe;
 pub mod render;
+pub mod unmix;
 
 /// The tool's version, recorded in every provenance file.
 pub const VERSION: &str = env!("CARGO_PKG_VERSION");

@@ -43,6 +43,16 @@ impl BandArgs {
         Ok((cube, kept))
     }
 
+    /// The range as given, if any.
+    pub fn range(&self) -> Option<(f64, f64)> {
+        self.range
+    }
+
+    /// The excluded bands as given, if any.
+    pub fn excluded(&self) -> Option<Vec<usize>> {
+        self.exclude_bands.as_ref().map(|l| l.0.clone())
+    }
+
     pub fn selection(&self) -> BandSelection {
         BandSelection {
             range_um: self.range,
@@ -67,5 +77,33 @@ pub struct LibraryArgs {
 impl LibraryArgs {
     pub fn load(&self) -> anyhow::Result<Library> {
         Library::load_or_default(self.library.as_deref()).with_context(|| "loading the library")
+    }
+}
+
+/// `--threads`: the worker threads for this process.
+#[derive(Debug, Clone, clap::Args)]
+pub struct ThreadArgs {
+    /// Worker threads. Default: SLURM_CPUS_PER_TASK when set, else every core.
+    #[arg(long, value_name = "N")]
+    threads: Option<usize>,
+}
+
+impl ThreadArgs {
+    /// Sets up the global thread pool; returns the thread count.
+    pub fn init(&self) -> anyhow::Result<usize> {
+        let n = match self.threads {
+            Some(0) => anyhow::bail!("--threads 0: at least one thread is needed"),
+            Some(n) => n,
+            None => std::env::var("SLURM_CPUS_PER_TASK")
+                .ok()
+                .and_then(|v| v.trim().parse::<usize>().ok())
+                .filter(|n| *n > 0)
+                .unwrap_or_else(|| std::thread::available_parallelism().map_or(1, |n| n.get())),
+        };
+        // A second call in one process (tests) keeps the first pool.
+        let _ = rayon::ThreadPoolBuilder::new()
+            .num_threads(n)
+            .build_global();
+        Ok(n)
     }
 }

@@ -6,6 +6,8 @@ mod convert;
 mod demo;
 mod inspect;
 mod library;
+mod progress;
+mod unmix;
 
 use std::io::{self, Write};
 use std::process::ExitCode;
@@ -39,6 +41,7 @@ enum Command {
     Convert(convert::Args),
     Demo(demo::Args),
     Library(library::Args),
+    Unmix(unmix::Args),
 }
 
 /// Parses the command line and runs the command.
@@ -49,6 +52,7 @@ pub fn run() -> anyhow::Result<ExitCode> {
         Command::Convert(args) => convert::run(args),
         Command::Demo(args) => demo::run(args),
         Command::Library(args) => library::run(args),
+        Command::Unmix(args) => unmix::run(args),
     }
 }
 

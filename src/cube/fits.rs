@@ -92,6 +92,7 @@ impl FitsCube {
             quantity,
             spatial_wcs: spatial_wcs_cards(h),
             about,
+            inputs: vec![path.to_path_buf()],
         };
         Ok(FitsCube {
             info,

@@ -110,6 +110,9 @@ pub struct CubeInfo {
     /// Spatial WCS cards (axes 1 and 2) of a FITS input, to copy into outputs.
     pub spatial_wcs: Vec<Card>,
     pub about: About,
+    /// Every file the cube was read from (the cube, its sidecar, band images), for
+    /// provenance.
+    pub inputs: Vec<PathBuf>,
 }
 
 impl CubeInfo {

@@ -249,6 +249,7 @@ impl NpyCube {
                 quantity: table.quantity.unwrap_or_default(),
                 spatial_wcs: Vec::new(),
                 about: table.about,
+                inputs: vec![path.to_path_buf(), side.clone()],
             },
             file,
             data_start: header.data_start,

@@ -209,6 +209,9 @@ impl StackCube {
                 bands,
                 quantity: table.quantity.unwrap_or_default(),
                 spatial_wcs: Vec::new(),
+                inputs: std::iter::once(path.to_path_buf())
+                    .chain(layers.iter().map(|l| l.path.clone()))
+                    .collect(),
                 about: table.about,
             },
             layers,

@@ -470,6 +470,7 @@ pub fn generate(
             bands: bands.clone(),
             quantity: Quantity::ReflectanceFactor,
             spatial_wcs: Vec::new(),
+            inputs: Vec::new(),
             about: About {
                 target: Some("Brimveil (fictional; synthetic scene)".into()),
                 time: None,

@@ -25,36 +25,29 @@ pub struct Unit {
 pub const UNITS: [Unit; 6] = [
     Unit {
         name: "Saffron Plains",
-        composition: &[
-            ("s8-alpha-cold", 0.50),
-            ("s8-alpha-room", 0.15),
-            ("so2-frost-fine", 0.20),
-            ("basalt-dark", 0.10),
-            ("sulfur-polymeric", 0.05),
-        ],
+        composition: &[("s8-alpha-cold", 0.75), ("so2-frost-fine", 0.25)],
     },
     Unit {
         name: "Hoarfrost Expanse",
         composition: &[
             ("so2-frost-fine", 0.45),
-            ("so2-frost-coarse", 0.30),
+            ("so2-frost-coarse", 0.35),
             ("s8-alpha-cold", 0.20),
-            ("basalt-dark", 0.05),
         ],
     },
     Unit {
         name: "Cinder Flows",
         composition: &[
-            ("basalt-dark", 0.65),
-            ("pyroxene-mafic", 0.25),
+            ("basalt-dark", 0.60),
+            ("pyroxene-mafic", 0.30),
             ("s8-alpha-cold", 0.10),
         ],
     },
     Unit {
         name: "Kiln Floors",
         composition: &[
-            ("basalt-dark", 0.55),
-            ("olivine-mafic", 0.35),
+            ("basalt-dark", 0.60),
+            ("olivine-mafic", 0.30),
             ("sulfur-polymeric", 0.10),
         ],
     },
@@ -69,9 +62,9 @@ pub const UNITS: [Unit; 6] = [
     Unit {
         name: "Rust Patches",
         composition: &[
-            ("sulfur-polymeric", 0.60),
-            ("s8-alpha-room", 0.20),
-            ("basalt-dark", 0.20),
+            ("sulfur-polymeric", 0.65),
+            ("s8-alpha-room", 0.25),
+            ("basalt-dark", 0.10),
         ],
     },
 ];

@@ -483,6 +483,21 @@ impl Library {
         }
     }
 
+    /// SHA-256 of the library's content (index fields and every member file's text), so
+    /// results record exactly which spectra they used.
+    pub fn sha256(&self) -> String {
+        use sha2::{Digest, Sha256};
+        let mut h = Sha256::new();
+        h.update(self.name.as_bytes());
+        h.update(b"\n");
+        h.update(self.version.as_bytes());
+        for m in &self.members {
+            h.update(b"\n");
+            h.update(m.to_file_text().as_bytes());
+        }
+        format!("{:x}", h.finalize())
+    }
+
     pub fn ids(&self) -> Vec<&str> {
         self.members.iter().map(|m| m.id.as_str()).collect()
     }

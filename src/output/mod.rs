@@ -1,7 +1,8 @@
-//! Writing results: atomic file creation now; the results-folder layout, provenance
-//! records and exporters join it as the pipeline grows.
+//! Writing results: atomic file creation ([`atomic`]) and the results folder of the
+//! results-folder contract ([`results`]).
 
 pub mod atomic;
+pub mod results;
 
 use std::path::PathBuf;
 

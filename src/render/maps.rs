@@ -47,3 +47,94 @@ pub fn png_bytes(img: &RgbImage) -> Vec<u8> {
     .expect("encoding a PNG into memory cannot fail");
     bytes
 }
+
+/// The colour no-data pixels take in value maps: a muted blue that no grey can be.
+pub const NODATA_RGB: [u8; 3] = [38, 52, 92];
+
+/// A greyscale map of `values` (black at `range.0`, white at `range.1`, clipped), with a
+/// title and a labelled colour bar; no-data (non-finite or not `valid`) in
+/// [`NODATA_RGB`]. Enlarged by whole pixels to about 512 pixels across.
+pub fn grey_map(
+    values: ndarray::ArrayView2<f32>,
+    valid: ndarray::ArrayView2<bool>,
+    row0_at_bottom: bool,
+    range: (f32, f32),
+    title: &str,
+) -> RgbImage {
+    use plotters::prelude::*;
+    let (rows, cols) = values.dim();
+    let scale = (512 / rows.max(cols)).max(1);
+    let (mw, mh) = (cols * scale, rows * scale);
+    let (left, top, right, bottom) = (12usize, 44usize, 110usize, 16usize);
+    let (w, h) = (left + mw + right, top + mh + bottom);
+    let mut buf = vec![255u8; w * h * 3];
+    let mut put = |x: usize, y: usize, rgb: [u8; 3]| {
+        let i = (y * w + x) * 3;
+        buf[i..i + 3].copy_from_slice(&rgb);
+    };
+    let span = (range.1 - range.0).max(f32::EPSILON);
+    let grey = |v: f32| {
+        let t = ((v - range.0) / span).clamp(0.0, 1.0);
+        let g = (t * 255.0).round() as u8;
+        [g, g, g]
+    };
+    for r in 0..rows {
+        let pr = if row0_at_bottom { rows - 1 - r } else { r };
+        for c in 0..cols {
+            let v = values[(r, c)];
+            let rgb = if valid[(r, c)] && v.is_finite() {
+                grey(v)
+            } else {
+                NODATA_RGB
+            };
+            for dy in 0..scale {
+                for dx in 0..scale {
+                    put(left + c * scale + dx, top + pr * scale + dy, rgb);
+                }
+            }
+        }
+    }
+    // Colour bar: 18 px wide beside the map, lowest value at the bottom.
+    let bx = left + mw + 14;
+    for y in 0..mh {
+        let t = 1.0 - y as f32 / (mh.max(2) - 1) as f32;
+        let rgb = grey(range.0 + t * span);
+        for dx in 0..18 {
+            put(bx + dx, top + y, rgb);
+        }
+    }
+    for y in [top - 1, top + mh] {
+        for dx in 0..18 {
+            put(bx + dx, y, [0, 0, 0]);
+        }
+    }
+    super::plot::register_font();
+    {
+        let area = BitMapBackend::with_buffer(&mut buf, (w as u32, h as u32)).into_drawing_area();
+        let text = |s: &str, x: usize, y: usize, size: u32| {
+            let _ = area.draw_text(
+                s,
+                &(super::plot::FAMILY, size).into_font().color(&BLACK),
+                (x as i32, y as i32),
+            );
+        };
+        text(title, left, 12, 18);
+        let label = |v: f32| {
+            if v.abs() >= 100.0 || (v != 0.0 && v.abs() < 0.01) {
+                format!("{v:.2e}")
+            } else {
+                format!("{v:.3}")
+            }
+        };
+        text(&label(range.1), bx + 22, top - 2, 13);
+        text(
+            &label((range.0 + range.1) / 2.0),
+            bx + 22,
+            top + mh / 2 - 6,
+            13,
+        );
+        text(&label(range.0), bx + 22, top + mh - 12, 13);
+        let _ = area.present();
+    }
+    RgbImage::from_raw(w as u32, h as u32, buf).expect("buffer matches the size")
+}

@@ -13,8 +13,17 @@ use plotters::prelude::*;
 use crate::output::OutputError;
 
 const FONT: &[u8] = include_bytes!("../../assets/fonts/DejaVuSans.ttf");
-const FAMILY: &str = "sans-serif";
+/// The font family every picture's text uses (DejaVu Sans, compiled in).
+pub const FAMILY: &str = "sans-serif";
 static REGISTER: Once = Once::new();
+
+/// Registers the compiled-in font with plotters (once per process).
+pub fn register_font() {
+    REGISTER.call_once(|| {
+        // The font is compiled in and known to parse (tested).
+        let _ = plotters::style::register_font(FAMILY, FontStyle::Normal, FONT);
+    });
+}
 
 /// One line of a plot.
 pub struct Series {
@@ -150,10 +159,7 @@ pub fn write_plot(path: &Path, plot: &SpectrumPlot) -> Result<(), OutputError> {
     let is_png = path
         .extension()
         .is_some_and(|e| e.eq_ignore_ascii_case("png"));
-    REGISTER.call_once(|| {
-        // The font is compiled in and known to parse (tested).
-        let _ = plotters::style::register_font(FAMILY, FontStyle::Normal, FONT);
-    });
+    register_font();
     if is_png {
         let mut buf = vec![0u8; (w * h * 3) as usize];
         draw(

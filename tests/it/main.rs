@@ -9,3 +9,4 @@ mod library;
 mod library_cli;
 mod roundtrip;
 mod support;
+mod unmix;

@@ -1,0 +1,141 @@
+//! The recipe: every option that can change a result, as one TOML file (`--recipe`), so a
+//! run can be repeated exactly and a batch can apply one recipe to many cubes. `run.json`
+//! records the recipe of each result in the same form. Threads, workers, shards, input
+//! and output paths and `--overwrite` are not part of it: they never change a result.
+//!
+//! ```toml
+//! library = "embedded"      # or a library folder
+//! solver = "fcls"           # unconstrained, sum-to-one, nnls, fcls
+//! shade = true
+//! subset = "auto"           # auto, off, or a subset size K
+//! groups = true
+//! group_angle_deg = 1.0
+//! # noise = 0.002           # noise σ for standard errors (default: from residuals)
+//! force = false
+//! # range_um = [0.4, 2.5]
+//! exclude_bands = []
+//! residuals = false
+//! precision = "f32"         # f32 (fast) or f64 (reference)
+//! ```
+//! Every key is optional; unknown keys are errors.
+
+use std::path::Path;
+
+use serde::{Deserialize, Serialize};
+
+use crate::cube::select::BandSelection;
+use crate::unmix::{Solver, Subsets, UnmixParams};
+
+/// Every result-changing option of `unmix` (and later `map`).
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields, default)]
+pub struct Recipe {
+    pub library: String,
+    pub solver: String,
+    pub shade: bool,
+    pub subset: String,
+    pub groups: bool,
+    pub group_angle_deg: f64,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub noise: Option<f64>,
+    pub force: bool,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub range_um: Option<[f64; 2]>,
+    pub exclude_bands: Vec<usize>,
+    pub residuals: bool,
+    pub precision: String,
+}
+
+impl Default for Recipe {
+    fn default() -> Self {
+        let p = UnmixParams::default();
+        Recipe {
+            library: "embedded".into(),
+            solver: p.solver.name().into(),
+            shade: p.shade,
+            subset: p.subsets.name(),
+            groups: p.groups,
+            group_angle_deg: p.group_angle_deg,
+            noise: p.noise,
+            force: p.force,
+            range_um: None,
+            exclude_bands: Vec::new(),
+            residuals: false,
+            precision: "f32".into(),
+        }
+    }
+}
+
+impl Recipe {
+    /// Reads a recipe file; errors name the file and the line.
+    pub fn load(path: &Path) -> Result<Recipe, String> {
+        let text = std::fs::read_to_string(path)
+            .map_err(|e| format!("{}: cannot read: {e}", path.display()))?;
+        toml::from_str(&text).map_err(|e| {
+            format!(
+                "{}: {}",
+                path.display(),
+                crate::cube::bands::toml_error_line(&text, &e)
+            )
+        })
+    }
+
+    /// The checked unmixing parameters.
+    pub fn unmix_params(&self) -> Result<UnmixParams, String> {
+        let solver = Solver::parse(&self.solver).ok_or_else(|| {
+            format!(
+                "solver `{}`: expected unconstrained, sum-to-one, nnls or fcls",
+                self.solver
+            )
+        })?;
+        let p = UnmixParams {
+            solver,
+            shade: self.shade,
+            subsets: Subsets::parse(&self.subset)?,
+            groups: self.groups,
+            group_angle_deg: self.group_angle_deg,
+            noise: self.noise,
+            force: self.force,
+        };
+        p.check().map_err(|e| e.to_string())?;
+        if self.precision != "f32" && self.precision != "f64" {
+            return Err(format!(
+                "precision `{}`: expected f32 or f64",
+                self.precision
+            ));
+        }
+        Ok(p)
+    }
+
+    pub fn selection(&self) -> BandSelection {
+        BandSelection {
+            range_um: self.range_um.map(|[a, b]| (a, b)),
+            exclude: self.exclude_bands.clone(),
+        }
+    }
+
+    /// The recipe as TOML text.
+    pub fn to_toml(&self) -> String {
+        toml::to_string(self).expect("recipes serialise")
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn the_default_recipe_round_trips_and_checks() {
+        let r = Recipe::default();
+        let back: Recipe = toml::from_str(&r.to_toml()).unwrap();
+        assert_eq!(r, back);
+        assert_eq!(r.unmix_params().unwrap(), UnmixParams::default());
+    }
+
+    #[test]
+    fn unknown_keys_and_bad_values_are_refused() {
+        assert!(toml::from_str::<Recipe>("solvr = \"fcls\"").is_err());
+        let r: Recipe = toml::from_str("solver = \"magic\"").unwrap();
+        assert!(r.unmix_params().unwrap_err().contains("magic"));
+    }
+}

@@ -1,0 +1,84 @@
+//! Unmixing: for every pixel, how much of each library member explains its spectrum, how
+//! well (RMSE) and how sure (standard errors).
+//!
+//! - [`params`]: the checked parameters (solver, shade, subsets, groups, noise).
+//! - [`model`]: the endmember matrix with groups and shade, the identifiability guard, and
+//!   the passive-set table (EᵀE and its factorisations computed once per cube).
+//! - [`solve`]: the per-pixel exact active-set solver, generic over f32 and f64.
+//! - [`run`]: the parallel driver over blocks of rows.
+//!
+//! Methods: NNLS (Lawson & Hanson 1974, *Solving Least Squares Problems*); fast NNLS on
+//! precomputed EᵀE and Eᵀy (Bro & De Jong 1997, J. Chemometrics 11:393); FCLS (Heinz &
+//! Chang 2001, IEEE TGRS 39:529); shade endmember (Adams, Smith & Johnson 1986, JGR
+//! 91:8098); per-pixel endmember subsets (Roberts et al. 1998, Remote Sens. Environ.
+//! 65:267); block principal pivoting (Júdice & Pires 1994, Comput. Oper. Res. 21:587).
+//! Standard errors use the constrained Cramér–Rao form σ²[G⁻¹ − G⁻¹11ᵀG⁻¹/(1ᵀG⁻¹1)] on the
+//! passive set.
+//!
+//! This module does no I/O and never prints.
+
+pub mod model;
+pub mod params;
+pub mod run;
+pub mod solve;
+
+pub use model::{Model, ModelError};
+pub use params::{ParamError, Solver, Subsets, UnmixParams};
+pub use run::{unmix, Counts, RunOptions, UnmixOutput};
+
+use serde::Serialize;
+
+/// Statistics of one plane over unmixed pixels.
+#[derive(Debug, Clone, Serialize, PartialEq)]
+pub struct PlaneStats {
+    pub id: String,
+    pub mean: f64,
+    pub std: f64,
+    pub min: f64,
+    pub max: f64,
+    pub mean_stderr: f64,
+}
+
+/// Per-plane statistics over the unmixed pixels.
+pub fn plane_stats(out: &UnmixOutput) -> Vec<PlaneStats> {
+    out.ids
+        .iter()
+        .enumerate()
+        .map(|(j, id)| {
+            let mut n = 0usize;
+            let (mut s, mut s2, mut se) = (0.0f64, 0.0f64, 0.0f64);
+            let (mut lo, mut hi) = (f64::INFINITY, f64::NEG_INFINITY);
+            let mut se_n = 0usize;
+            for ((r, c), ok) in out.unmixed.indexed_iter() {
+                if !ok {
+                    continue;
+                }
+                let v = out.abundance[(r, c, j)] as f64;
+                n += 1;
+                s += v;
+                s2 += v * v;
+                lo = lo.min(v);
+                hi = hi.max(v);
+                let e = out.stderr[(r, c, j)] as f64;
+                if e.is_finite() {
+                    se += e;
+                    se_n += 1;
+                }
+            }
+            let mean = if n > 0 { s / n as f64 } else { f64::NAN };
+            let var = if n > 1 {
+                (s2 / n as f64 - mean * mean).max(0.0)
+            } else {
+                0.0
+            };
+            PlaneStats {
+                id: id.clone(),
+                mean,
+                std: var.sqrt(),
+                min: lo,
+                max: hi,
+                mean_stderr: if se_n > 0 { se / se_n as f64 } else { f64::NAN },
+            }
+        })
+        .collect()
+}

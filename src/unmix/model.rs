@@ -1,0 +1,312 @@
+//! The endmember model a cube is unmixed against: the resampled library with inseparable
+//! members grouped, an optional shade column, the identifiability guard, and the table of
+//! precomputed solution maps for every passive set.
+//!
+//! For a passive set P (the members allowed to be non-zero) the constrained least-squares
+//! solution is an affine function of b = Eᵀy. With the sum-to-one constraint it solves the
+//! bordered (KKT) system
+//!
+//! ```text
+//! [ G_PP  1 ] [ a_P ]   [ b_P ]
+//! [ 1ᵀ    0 ] [ λ   ] = [ 1   ]        G = EᵀE
+//! ```
+//!
+//! and the multipliers of the members held at zero are μ = G a − b + λ1 (μ ≥ 0 at the
+//! optimum). Without it, a_P = G_PP⁻¹ b_P and μ = G a − b. Each table entry stores one
+//! (2M × M) matrix and a 2M offset giving [a; μ] from b, so an active-set step is one
+//! matrix–vector product and a sign test (Bro & De Jong 1997 precompute EᵀE and Eᵀy the
+//! same way). The entry also keeps the diagonal of the covariance factor for standard
+//! errors: Z⁻¹ top-left block = G⁻¹ − G⁻¹11ᵀG⁻¹/(1ᵀG⁻¹1) with the constraint, G_PP⁻¹
+//! without. A shade member is a zero column: G is then singular but the bordered system is
+//! not, which is why the bordered form is inverted rather than G.
+
+use ndarray::Array2;
+
+use super::params::{Solver, Subsets, UnmixParams, AUTO_SUBSET_SIZE, MAX_CONDITION};
+use crate::library::diagnostics::{condition_number, diagnose, with_sum_row, Group, Pair};
+use crate::library::resample::Resampled;
+
+/// The most columns (members, groups and shade) the passive-set table holds: 2¹² entries.
+pub const MAX_COLUMNS: usize = 12;
+
+/// Why a model cannot be built.
+#[derive(Debug, Clone, PartialEq, thiserror::Error)]
+pub enum ModelError {
+    #[error(
+        "the band set cannot separate the library: {unknowns} unknowns ({members}) from {bands} \
+         bands{closest}. Drop members with --library, narrow the library to what the scene \
+         holds, use subset mode (--subset 3), or pass --force to unmix anyway"
+    )]
+    TooFewBands {
+        unknowns: usize,
+        members: String,
+        bands: usize,
+        closest: String,
+    },
+    #[error(
+        "the band set separates the library poorly: condition number {condition:.3e} exceeds \
+         {max:.0e}{closest}. Drop one member of the closest pairs, use subset mode \
+         (--subset 3), or pass --force to unmix anyway"
+    )]
+    IllConditioned {
+        condition: f64,
+        max: f64,
+        closest: String,
+    },
+    #[error(
+        "{columns} columns (members, groups and shade) exceed the exact active-set table's \
+         {max}; group members, use a smaller library, or subset mode"
+    )]
+    TooManyColumns { columns: usize, max: usize },
+}
+
+/// One passive set's precomputed solution map.
+#[derive(Debug, Clone)]
+pub struct Entry<T> {
+    /// (2M × M) row-major: rows 0..M give a, rows M..2M give μ.
+    pub map: Vec<T>,
+    /// 2M offsets.
+    pub off: Vec<T>,
+    /// Diagonal of the covariance factor for members in P (0 elsewhere).
+    pub var: Vec<f64>,
+}
+
+/// The model: columns, matrix, and the passive-set table.
+#[derive(Debug, Clone)]
+pub struct Model {
+    /// Column ids: members or group ids, then `shade` when used.
+    pub ids: Vec<String>,
+    /// Groups applied (members unmixed as one).
+    pub groups: Vec<Group>,
+    /// E: bands × columns (the shade column is zero).
+    pub e: Array2<f64>,
+    /// Whether the last column is shade.
+    pub shade: bool,
+    pub solver: Solver,
+    /// The subset size in use (`None`: the full problem).
+    pub subset_size: Option<usize>,
+    /// Allowed masks in subset mode (each includes shade when used).
+    pub subsets: Vec<u32>,
+    /// Entries by passive-set mask; `None` where the system is singular or not needed.
+    /// Kept in f64 for both paths: explicit inverses evaluated in f32 amplify rounding by
+    /// cond(G) (1e-2 on the 32 × 8 SciPy reference problem), while the M-dimensional step
+    /// costs little next to Eᵀy.
+    pub table64: Vec<Option<Entry<f64>>>,
+    /// κ of E (with shade) and a row of ones.
+    pub condition: f64,
+    pub closest_pairs: Vec<Pair>,
+}
+
+impl Model {
+    pub fn columns(&self) -> usize {
+        self.ids.len()
+    }
+
+    pub fn bands(&self) -> usize {
+        self.e.nrows()
+    }
+
+    /// Columns that are members or groups (not shade).
+    pub fn material_columns(&self) -> usize {
+        self.ids.len() - self.shade as usize
+    }
+
+    /// The mask of every column.
+    pub fn full_mask(&self) -> u32 {
+        ((1u64 << self.columns()) - 1) as u32
+    }
+
+    /// Builds the model for `resampled` (the library at the cube's bands).
+    pub fn build(r: &Resampled, p: &UnmixParams) -> Result<Model, ModelError> {
+        let diag = diagnose(r, p.group_angle_deg);
+        let groups = if p.groups {
+            diag.groups.clone()
+        } else {
+            Vec::new()
+        };
+        // Columns: each member not in a group, each group (its mean spectrum), in library
+        // order of first appearance.
+        let mut ids = Vec::new();
+        let mut cols: Vec<Vec<f64>> = Vec::new();
+        for (j, id) in r.ids.iter().enumerate() {
+            match groups.iter().find(|g| g.indices.contains(&j)) {
+                Some(g) if g.indices[0] != j => continue,
+                Some(g) => {
+                    ids.push(g.id.clone());
+                    let n = g.indices.len() as f64;
+                    cols.push(
+                        (0..r.matrix.nrows())
+                            .map(|b| g.indices.iter().map(|&k| r.matrix[(b, k)]).sum::<f64>() / n)
+                            .collect(),
+                    );
+                }
+                None => {
+                    ids.push(id.clone());
+                    cols.push(r.matrix.column(j).to_vec());
+                }
+            }
+        }
+        // Shade is meaningful only with the sum-to-one constraint; without it the shade
+        // fraction is reported as 1 − Σa instead (see `run`).
+        let shade = p.shade && p.solver.sum_to_one();
+        if shade {
+            ids.push("shade".into());
+            cols.push(vec![0.0; r.matrix.nrows()]);
+        }
+        let (nb, m) = (r.matrix.nrows(), cols.len());
+        let e = Array2::from_shape_fn((nb, m), |(b, j)| cols[j][b]);
+        if m > MAX_COLUMNS {
+            return Err(ModelError::TooManyColumns {
+                columns: m,
+                max: MAX_COLUMNS,
+            });
+        }
+        let condition = condition_number(&with_sum_row(&e));
+        let closest: Vec<Pair> = diag
+            .pairs
+            .iter()
+            .filter(|pair| {
+                !groups
+                    .iter()
+                    .any(|g| g.members.contains(&pair.a) && g.members.contains(&pair.b))
+            })
+            .take(3)
+            .cloned()
+            .collect();
+        let closest_text = if closest.is_empty() {
+            String::new()
+        } else {
+            format!(
+                "; closest pairs: {}",
+                closest
+                    .iter()
+                    .map(|x| format!("{} — {} ({:.2}°)", x.a, x.b, x.angle_deg))
+                    .collect::<Vec<_>>()
+                    .join(", ")
+            )
+        };
+        let unknowns = m;
+        let identifiable = unknowns <= nb && condition <= MAX_CONDITION;
+        let subset_size = match p.subsets {
+            Subsets::Off => None,
+            Subsets::UpTo(k) => Some(k),
+            Subsets::Auto if identifiable || p.force => None,
+            Subsets::Auto if p.solver == Solver::Fcls => Some(AUTO_SUBSET_SIZE),
+            Subsets::Auto => None,
+        };
+        if subset_size.is_none() && !identifiable && !p.force {
+            return Err(if unknowns > nb {
+                ModelError::TooFewBands {
+                    unknowns,
+                    members: ids.join(", "),
+                    bands: nb,
+                    closest: closest_text,
+                }
+            } else {
+                ModelError::IllConditioned {
+                    condition,
+                    max: MAX_CONDITION,
+                    closest: closest_text,
+                }
+            });
+        }
+        let material = m - shade as usize;
+        let shade_bit = if shade { 1u32 << material } else { 0 };
+        let subsets: Vec<u32> = match subset_size {
+            None => Vec::new(),
+            Some(k) => (1u32..(1u32 << material))
+                .filter(|mask| mask.count_ones() as usize <= k)
+                .map(|mask| mask | shade_bit)
+                .collect(),
+        };
+        let g = e.t().dot(&e);
+        let needed = |mask: u32| -> bool {
+            match p.solver {
+                Solver::Unconstrained | Solver::SumToOne => mask as u64 == (1u64 << m) - 1,
+                _ => true,
+            }
+        };
+        let mut table64 = Vec::with_capacity(1 << m);
+        for mask in 0..(1u32 << m) {
+            table64.push(if needed(mask) {
+                entry(&g, mask, p.solver.sum_to_one())
+            } else {
+                None
+            });
+        }
+        Ok(Model {
+            ids,
+            groups,
+            e,
+            shade,
+            solver: p.solver,
+            subset_size,
+            subsets,
+            table64,
+            condition,
+            closest_pairs: closest,
+        })
+    }
+}
+
+/// The solution map of passive set `mask`; `None` when its system is singular.
+fn entry(g: &Array2<f64>, mask: u32, sum_to_one: bool) -> Option<Entry<f64>> {
+    let m = g.nrows();
+    let p: Vec<usize> = (0..m).filter(|i| mask & (1 << i) != 0).collect();
+    let k = p.len();
+    if k == 0 {
+        return None;
+    }
+    // a = A b + c over all M (zero outside P), with λ = l·b + l0 when constrained.
+    let mut a_map = vec![0.0; m * m];
+    let mut a_off = vec![0.0; m];
+    let mut lam = vec![0.0; m];
+    let mut lam0 = 0.0;
+    let mut var = vec![0.0; m];
+    let size = k + sum_to_one as usize;
+    let z = nalgebra::DMatrix::from_fn(size, size, |i, j| match (i < k, j < k) {
+        (true, true) => g[(p[i], p[j])],
+        (true, false) | (false, true) => 1.0,
+        (false, false) => 0.0,
+    });
+    // Refuse numerically singular systems (e.g. two identical members in P).
+    let sv = z.clone().singular_values();
+    let (max, min) = (
+        sv.max(),
+        sv.iter()
+            .cloned()
+            .fold(f64::INFINITY, |a, b| a.min(b.abs())),
+    );
+    if min.is_nan() || min <= max * 1e-12 {
+        return None;
+    }
+    let zi = z.try_inverse()?;
+    for (r, &pi) in p.iter().enumerate() {
+        for (c, &pj) in p.iter().enumerate() {
+            a_map[pi * m + pj] = zi[(r, c)];
+        }
+        if sum_to_one {
+            a_off[pi] = zi[(r, k)];
+        }
+        var[pi] = zi[(r, r)].max(0.0);
+    }
+    if sum_to_one {
+        for (c, &pj) in p.iter().enumerate() {
+            lam[pj] = zi[(k, c)];
+        }
+        lam0 = zi[(k, k)];
+    }
+    // μ = G a − b + λ1 = (G A − I + 1 lᵀ) b + (G c + l0 1).
+    let mut map = vec![0.0; 2 * m * m];
+    let mut off = vec![0.0; 2 * m];
+    map[..m * m].copy_from_slice(&a_map);
+    off[..m].copy_from_slice(&a_off);
+    for i in 0..m {
+        for j in 0..m {
+            let ga: f64 = (0..m).map(|t| g[(i, t)] * a_map[t * m + j]).sum();
+            map[(m + i) * m + j] = ga - if i == j { 1.0 } else { 0.0 } + lam[j];
+        }
+        off[m + i] = (0..m).map(|t| g[(i, t)] * a_off[t]).sum::<f64>() + lam0;
+    }
+    Some(Entry { map, off, var })
+}
