@@ -224,7 +224,7 @@ pub fn write_unmix_products(
         &out.ids,
         &out.abundance,
         info,
-        "abundances: materials renormalised without shade; shade fraction last",
+        "abundance: materials sum to 1 without shade; shade last",
     )?;
     results::write_planes(
         &dir.join("stderr.fits"),

@@ -110,7 +110,12 @@ impl Cube {
         if indices.len() == self.info.bands.len() {
             return;
         }
-        let data = self.data.select(ndarray::Axis(2), indices);
+        // `select` may return a non-standard layout; pixels must stay contiguous.
+        let data = self
+            .data
+            .select(ndarray::Axis(2), indices)
+            .as_standard_layout()
+            .into_owned();
         self.info.bands = self.info.bands.subset(indices);
         let block = super::Block::from_samples(0, data);
         self.data = block.data;

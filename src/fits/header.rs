@@ -198,7 +198,15 @@ pub fn format_card(card: &Card) -> String {
                 Value::Integer(i) => format!("{i:>20}"),
                 Value::Real(r) => format!("{:>20}", format_real(*r)),
                 Value::Text(s) => {
-                    let escaped = s.replace('\'', "''");
+                    // A string must close on this card: 80 − 10 (keyword, "= ") − 2 quotes.
+                    let mut text: String = s
+                        .chars()
+                        .filter(|c| c.is_ascii() && !c.is_ascii_control())
+                        .collect();
+                    while text.replace('\'', "''").len() > 68 {
+                        text.pop();
+                    }
+                    let escaped = text.replace('\'', "''");
                     format!("'{escaped:<8}'")
                 }
                 Value::Other(_) => unreachable!("handled above"),
@@ -270,6 +278,10 @@ mod tests {
             assert_eq!(back.value, card.value, "{text}");
         }
         assert_eq!(format_real(2.0), "2.0");
+        // Over-long strings are cut inside the quotes, never left open.
+        let long = Card::new("CONTENT", Value::Text("x'".repeat(60)), "a comment");
+        let back = parse_card(format_card(&long).as_bytes()).unwrap();
+        assert!(matches!(back.value, Value::Text(t) if t.starts_with("x'x'")));
         assert_eq!(format_real(1e-6), "1.0E-6");
     }
 }

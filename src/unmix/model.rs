@@ -63,12 +63,15 @@ pub enum ModelError {
 /// One passive set's precomputed solution map.
 #[derive(Debug, Clone)]
 pub struct Entry<T> {
-    /// (2M × M) row-major: rows 0..M give a, rows M..2M give μ.
+    /// (2M × M) column-major: column j (2M values, contiguous) holds b_j's coefficients;
+    /// rows 0..M give a, rows M..2M give μ.
     pub map: Vec<T>,
     /// 2M offsets.
     pub off: Vec<T>,
     /// Diagonal of the covariance factor for members in P (0 elsewhere).
     pub var: Vec<f64>,
+    /// Its square roots, so a standard error is one multiplication.
+    pub sd: Vec<f64>,
 }
 
 /// The model: columns, matrix, and the passive-set table.
@@ -308,5 +311,17 @@ fn entry(g: &Array2<f64>, mask: u32, sum_to_one: bool) -> Option<Entry<f64>> {
         }
         off[m + i] = (0..m).map(|t| g[(i, t)] * a_off[t]).sum::<f64>() + lam0;
     }
-    Some(Entry { map, off, var })
+    // Column-major, so an evaluation is M vectorised multiply-adds over 2M rows.
+    let mut cols = vec![0.0; 2 * m * m];
+    for i in 0..2 * m {
+        for j in 0..m {
+            cols[j * 2 * m + i] = map[i * m + j];
+        }
+    }
+    Some(Entry {
+        map: cols,
+        off,
+        sd: var.iter().map(|v| v.sqrt()).collect(),
+        var,
+    })
 }

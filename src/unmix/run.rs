@@ -48,6 +48,8 @@ pub struct Counts {
     pub dark: usize,
     /// Pixels solved by the enumeration fallback.
     pub enumerated: usize,
+    /// Active-set steps beyond the first, summed over pixels.
+    pub steps: usize,
 }
 
 /// Everything unmixing produces.
@@ -81,6 +83,176 @@ pub struct RunOptions {
 /// Rows per parallel task.
 const ROWS_PER_TASK: usize = 8;
 
+/// Eᵀy for one pixel with the member count fixed at compile time, so the accumulators
+/// live in registers and each band is one vector multiply-add; four interleaved
+/// accumulator sets hide the multiply-add latency.
+#[inline]
+fn ety_fixed<const MM: usize>(y: &[f32], et: &[f32], out: &mut [f64]) {
+    let mut acc = [[0f32; MM]; 4];
+    let mut bands = y.chunks_exact(4);
+    let mut rows = et.chunks_exact(4 * MM);
+    for (yy, rr) in (&mut bands).zip(&mut rows) {
+        for k in 0..4 {
+            let row = &rr[k * MM..(k + 1) * MM];
+            for j in 0..MM {
+                acc[k][j] += row[j] * yy[k];
+            }
+        }
+    }
+    let tail = bands.remainder();
+    let rest = &et[et.len() - tail.len() * MM..];
+    for (k, yv) in tail.iter().enumerate() {
+        for j in 0..MM {
+            acc[0][j] += rest[k * MM + j] * yv;
+        }
+    }
+    for j in 0..MM {
+        out[j] = ((acc[0][j] + acc[1][j]) + (acc[2][j] + acc[3][j])) as f64;
+    }
+}
+
+/// Eᵀy in f32 for any member count.
+fn ety_any(y: &[f32], et: &[f32], out: &mut [f64]) {
+    let mat = et.len() / y.len().max(1);
+    let mut acc = vec![0f32; mat];
+    for (band, &yv) in y.iter().enumerate() {
+        for (a, e) in acc.iter_mut().zip(&et[band * mat..(band + 1) * mat]) {
+            *a += e * yv;
+        }
+    }
+    for (o, a) in out.iter_mut().zip(&acc) {
+        *o = *a as f64;
+    }
+}
+
+type EtyFn = fn(&[f32], &[f32], &mut [f64]);
+
+fn ety_kernel(mat: usize) -> EtyFn {
+    macro_rules! pick {
+        ($($n:literal)*) => {
+            match mat {
+                $($n => ety_fixed::<$n>,)*
+                _ => ety_any,
+            }
+        };
+    }
+    pick!(1 2 3 4 5 6 7 8 9 10 11 12)
+}
+
+/// The per-pixel arithmetic of one precision.
+struct Kernel {
+    /// E band-major (B × materials) for Eᵀy.
+    et32: Vec<f32>,
+    et64: Vec<f64>,
+    /// E column-major (materials × B) for the residual.
+    ecol32: Vec<f32>,
+    ecol64: Vec<f64>,
+    ety32: EtyFn,
+    f64_path: bool,
+}
+
+impl Kernel {
+    fn new(model: &Model, f64_path: bool) -> Kernel {
+        let (nb, mat) = (model.bands(), model.material_columns());
+        let e = &model.e;
+        let et64: Vec<f64> = (0..nb)
+            .flat_map(|b| (0..mat).map(move |j| e[(b, j)]))
+            .collect();
+        let ecol64: Vec<f64> = (0..mat)
+            .flat_map(|j| (0..nb).map(move |b| e[(b, j)]))
+            .collect();
+        Kernel {
+            et32: et64.iter().map(|v| *v as f32).collect(),
+            ecol32: ecol64.iter().map(|v| *v as f32).collect(),
+            et64,
+            ecol64,
+            ety32: ety_kernel(mat),
+            f64_path,
+        }
+    }
+
+    /// b = Eᵀy over the materials (the shade entry stays 0).
+    #[inline]
+    fn ety(&self, y: &[f32], b: &mut [f64]) {
+        let mat = self.ecol64.len() / y.len().max(1);
+        if self.f64_path {
+            // f32 × f32 products are exact in f64: this is Eᵀy of the f32 inputs.
+            for v in b[..mat].iter_mut() {
+                *v = 0.0;
+            }
+            for (band, &yv) in y.iter().enumerate() {
+                let yv = yv as f64;
+                for (bj, e) in b[..mat]
+                    .iter_mut()
+                    .zip(&self.et64[band * mat..(band + 1) * mat])
+                {
+                    *bj += e * yv;
+                }
+            }
+        } else {
+            (self.ety32)(y, &self.et32, &mut b[..mat]);
+        }
+    }
+
+    /// RSS of the direct residual y − E a (accumulated in f64); fills `res` when given.
+    #[inline]
+    fn rss(
+        &self,
+        y: &[f32],
+        a: &[f64],
+        fit32: &mut [f32],
+        fit64: &mut [f64],
+        res: Option<&mut Vec<f32>>,
+    ) -> f64 {
+        let nb = y.len();
+        let mut rss = 0.0f64;
+        if self.f64_path {
+            fit64.iter_mut().for_each(|v| *v = 0.0);
+            for (col, &aj) in self.ecol64.chunks_exact(nb).zip(a) {
+                for (f, e) in fit64.iter_mut().zip(col) {
+                    *f += e * aj;
+                }
+            }
+            for (f, &yv) in fit64.iter_mut().zip(y) {
+                let d = yv as f64 - *f;
+                *f = d;
+                rss += d * d;
+            }
+            if let Some(res) = res {
+                res.extend(fit64.iter().map(|d| *d as f32));
+            }
+        } else {
+            fit32.iter_mut().for_each(|v| *v = 0.0);
+            for (col, &aj) in self.ecol32.chunks_exact(nb).zip(a) {
+                let aj = aj as f32;
+                for (f, e) in fit32.iter_mut().zip(col) {
+                    *f += e * aj;
+                }
+            }
+            // Squares of residuals are summed in eight f32 lanes: positive terms, no
+            // cancellation (the Gram form yᵀy − 2aᵀb + aᵀGa is what would need f64).
+            let mut lanes = [0f32; 8];
+            let mut fits = fit32.chunks_exact(8);
+            let mut ys = y.chunks_exact(8);
+            for (f, yy) in (&mut fits).zip(&mut ys) {
+                for k in 0..8 {
+                    let d = yy[k] - f[k];
+                    lanes[k] += d * d;
+                }
+            }
+            for (f, yv) in fits.remainder().iter().zip(ys.remainder()) {
+                let d = yv - f;
+                lanes[0] += d * d;
+            }
+            rss = lanes.iter().map(|v| *v as f64).sum();
+            if let Some(res) = res {
+                res.extend(fit32.iter().zip(y).map(|(f, yv)| yv - f));
+            }
+        }
+        rss
+    }
+}
+
 /// Unmixes every pixel of `cube`. `progress` is called with the number of rows finished.
 pub fn unmix<T: Real>(
     cube: &Cube,
@@ -108,16 +280,17 @@ pub fn unmix<T: Real>(
         .then(|| Array3::<f32>::from_elem((rows, cols, nb), f32::NAN));
     let mut unmixed = Array2::<bool>::from_elem((rows, cols), false);
 
-    // E band-major (B × material columns) in T for Eᵀy; f64 for residuals and the Gram.
-    let et: Vec<T> = (0..nb)
-        .flat_map(|b| (0..mat).map(move |j| (b, j)))
-        .map(|(b, j)| T::from(model.e[(b, j)]).expect("finite"))
-        .collect();
-    let e64 = &model.e;
-    let g = e64.t().dot(e64);
+    let kernel = Kernel::new(model, std::mem::size_of::<T>() == 8);
+    let g = model.e.t().dot(&model.e);
     let table = &model.table64;
     let full = model.full_mask();
     let nonneg = model.solver.non_negative();
+    let fixed = if nonneg {
+        super::solve::fixed_solver(m, super::solve::avx2_available())
+    } else {
+        None
+    };
+    let sum_to_one = model.solver.sum_to_one() as u8 as f64;
     let done = AtomicUsize::new(0);
 
     // Subset picks and residuals are gathered per task and placed after the pass.
@@ -131,53 +304,59 @@ pub fn unmix<T: Real>(
         .enumerate()
         .map(|(k, ((((mut ab, mut se), mut rm), mut ac), mut um))| {
             let mut counts = Counts::default();
-            let mut bt = vec![T::zero(); m];
             let mut b = vec![0.0f64; m];
             let mut a = vec![0.0f64; m];
             let mut work = vec![0.0f64; 2 * m];
             let mut best = vec![0.0f64; m];
+            let mut fit32 = vec![0.0f32; nb];
+            let mut fit64 = vec![0.0f64; nb];
             let mut scores: Vec<f64> = Vec::new();
             let mut sols: Vec<f64> = Vec::new();
             let r0 = k * ROWS_PER_TASK;
             let mut picks: Vec<(usize, usize, u16)> = Vec::new();
             let mut resid: Vec<(usize, usize, Vec<f32>)> = Vec::new();
-            for dr in 0..ab.dim().0 {
+            let ab = ab
+                .as_slice_mut()
+                .expect("chunks of standard arrays are contiguous");
+            let se = se.as_slice_mut().expect("contiguous");
+            let rm = rm.as_slice_mut().expect("contiguous");
+            let ac = ac.as_slice_mut().expect("contiguous");
+            let um = um.as_slice_mut().expect("contiguous");
+            let task_rows = rm.len() / cols;
+            for dr in 0..task_rows {
                 let r = r0 + dr;
+                let yrow = cube.data.index_axis(Axis(0), r);
+                let yrow = yrow.as_slice().expect("cube rows are contiguous");
+                let vrow = cube.valid.row(r);
                 let mut start = full;
                 for c in 0..cols {
-                    if !cube.valid[(r, c)] {
+                    if !vrow[c] {
                         counts.nodata += 1;
                         continue;
                     }
-                    let y = cube.data.slice(ndarray::s![r, c, ..]);
-                    let y = y.as_slice().expect("pixels are contiguous");
+                    let y = &yrow[c * nb..(c + 1) * nb];
                     if y.iter().all(|v| *v == 0.0) {
                         counts.zero_signal += 1;
                         continue;
                     }
-                    // b = Eᵀy (the shade column's entry is zero).
-                    bt.iter_mut().for_each(|v| *v = T::zero());
-                    for (band, &yv) in y.iter().enumerate() {
-                        let yv = T::from(yv).expect("finite");
-                        let row = &et[band * mat..(band + 1) * mat];
-                        for (bj, ej) in bt[..mat].iter_mut().zip(row) {
-                            *bj = *bj + *ej * yv;
-                        }
-                    }
-                    for (d, s) in b.iter_mut().zip(&bt) {
-                        *d = s.to_f64().unwrap_or(f64::NAN);
-                    }
+                    kernel.ety(y, &mut b);
                     let (passive, enumerated, pick) = match model.subset_size {
                         None => {
-                            let o = solve_pixel(table, &b, full, start, nonneg, &mut a, &mut work);
+                            let o = match fixed {
+                                Some(f) => f(table, &b, full, start, &mut a, &mut work),
+                                None => {
+                                    solve_pixel(table, &b, full, start, nonneg, &mut a, &mut work)
+                                }
+                            };
                             start = o.passive;
+                            counts.steps += o.steps as usize;
                             (o.passive, o.enumerated, 0u16)
                         }
                         Some(_) => {
                             // Every allowed subset, scored by BIC; the estimate averages
                             // the subsets' solutions with weights exp(−ΔBIC/2) (Bayesian
-                            // model averaging), so members the bands cannot tell apart share
-                            // the abundance instead of one being picked by the noise.
+                            // model averaging), so members the bands cannot tell apart
+                            // share the abundance instead of one being picked by the noise.
                             let yy: f64 = y.iter().map(|v| (*v as f64).powi(2)).sum();
                             let n = nb as f64;
                             scores.clear();
@@ -216,50 +395,44 @@ pub fn unmix<T: Real>(
                     if enumerated {
                         counts.enumerated += 1;
                     }
-                    // Direct residual, accumulated in f64.
-                    let mut rss = 0.0f64;
                     let mut res = opts.residuals.then(|| Vec::with_capacity(nb));
-                    for (band, &yv) in y.iter().enumerate() {
-                        let fit: f64 = (0..mat).map(|j| e64[(band, j)] * a[j]).sum();
-                        let d = yv as f64 - fit;
-                        rss += d * d;
-                        if let Some(res) = res.as_mut() {
-                            res.push(d as f32);
-                        }
-                    }
-                    let af = &a;
-                    let sum: f64 = af[..mat].iter().sum();
+                    let rss = kernel.rss(y, &a, &mut fit32, &mut fit64, res.as_mut());
+                    let sum: f64 = a[..mat].iter().sum();
                     if sum.is_nan() || sum < DARK_LIMIT {
                         counts.dark += 1;
                         continue;
                     }
-                    let k = af.iter().filter(|v| **v > 0.0).count();
-                    let dof =
-                        (nb as f64 - k as f64 + model.solver.sum_to_one() as u8 as f64).max(1.0);
+                    let kk = a.iter().filter(|v| **v > 0.0).count();
+                    let dof = (nb as f64 - kk as f64 + sum_to_one).max(1.0);
                     let sigma2 = match opts.noise {
                         Some(n) => n * n,
                         None => rss / dof,
                     };
-                    let var = &table[passive as usize]
+                    let sd = &table[passive as usize]
                         .as_ref()
                         .expect("a solved passive set has an entry")
-                        .var;
+                        .sd;
+                    let sigma = sigma2.sqrt();
+                    let px = dr * cols + c;
+                    let out_ab = &mut ab[px * planes..(px + 1) * planes];
+                    let out_se = &mut se[px * planes..(px + 1) * planes];
+                    let inv = 1.0 / sum;
                     for j in 0..mat {
-                        ab[(dr, c, j)] = (af[j] / sum) as f32;
-                        se[(dr, c, j)] = ((sigma2 * var[j]).sqrt() / sum) as f32;
+                        out_ab[j] = (a[j] * inv) as f32;
+                        out_se[j] = (sigma * sd[j] * inv) as f32;
                     }
                     if opts.report_shade {
                         let (shade, shade_se) = if model.shade {
-                            (af[mat], (sigma2 * var[mat]).sqrt())
+                            (a[mat], sigma * sd[mat])
                         } else {
                             (1.0 - sum, f64::NAN)
                         };
-                        ab[(dr, c, mat)] = shade as f32;
-                        se[(dr, c, mat)] = shade_se as f32;
+                        out_ab[mat] = shade as f32;
+                        out_se[mat] = shade_se as f32;
                     }
-                    rm[(dr, c)] = (rss / nb as f64).sqrt() as f32;
-                    ac[(dr, c)] = k as u8;
-                    um[(dr, c)] = true;
+                    rm[px] = (rss / nb as f64).sqrt() as f32;
+                    ac[px] = kk as u8;
+                    um[px] = true;
                     counts.unmixed += 1;
                     if pick > 0 {
                         picks.push((r, c, pick));
@@ -269,7 +442,7 @@ pub fn unmix<T: Real>(
                     }
                 }
             }
-            progress(done.fetch_add(ab.dim().0, Ordering::Relaxed) + ab.dim().0);
+            progress(done.fetch_add(task_rows, Ordering::Relaxed) + task_rows);
             (counts, picks, resid)
         })
         .collect::<Vec<_>>()
@@ -296,6 +469,7 @@ pub fn unmix<T: Real>(
         zero_signal: t.zero_signal + c.zero_signal,
         dark: t.dark + c.dark,
         enumerated: t.enumerated + c.enumerated,
+        steps: t.steps + c.steps,
     });
     UnmixOutput {
         ids,

@@ -23,14 +23,19 @@ fn tolerance<T: Float>(scale: T) -> T {
 /// Evaluates an entry: out = map·b + off (2M values).
 #[inline]
 fn evaluate<T: Float>(e: &Entry<T>, b: &[T], out: &mut [T]) {
-    let m = b.len();
-    for (i, o) in out.iter_mut().enumerate() {
-        let row = &e.map[i * m..(i + 1) * m];
-        let mut acc = e.off[i];
-        for (r, v) in row.iter().zip(b) {
-            acc = acc + *r * *v;
+    let n = out.len();
+    evaluate_rows(e, b, out, 0, n);
+}
+
+/// Evaluates rows `lo..hi` of an entry into `out[lo..hi]`.
+#[inline]
+fn evaluate_rows<T: Float>(e: &Entry<T>, b: &[T], out: &mut [T], lo: usize, hi: usize) {
+    let n = out.len();
+    out[lo..hi].copy_from_slice(&e.off[lo..hi]);
+    for (col, &bj) in e.map.chunks_exact(n).zip(b) {
+        for (o, c) in out[lo..hi].iter_mut().zip(&col[lo..hi]) {
+            *o = *o + *c * bj;
         }
-        *o = acc;
     }
 }
 
@@ -110,8 +115,16 @@ pub fn solve_pixel<T: Float>(
         let Some(entry) = table.get(p as usize).and_then(|e| e.as_ref()) else {
             break;
         };
-        evaluate(entry, b, work);
-        let (count, flip) = violations(work, m, p, allowed, tol);
+        // Abundances first; when every allowed member is passive and none is negative
+        // there are no multipliers to test and the point is optimal.
+        evaluate_rows(entry, b, work, 0, m);
+        let (count, flip) = if p == allowed && (0..m).all(|i| p & (1 << i) == 0 || work[i] >= -tol)
+        {
+            (0, 0)
+        } else {
+            evaluate_rows(entry, b, work, m, 2 * m);
+            violations(work, m, p, allowed, tol)
+        };
         if count == 0 {
             for i in 0..m {
                 a[i] = if p & (1 << i) != 0 {
@@ -145,7 +158,7 @@ pub fn solve_pixel<T: Float>(
 /// Exact fallback: the passive set within `allowed` whose solution satisfies the KKT
 /// signs (the optimum of a strictly convex problem is the unique such point); when
 /// rounding leaves none exact, the one with the fewest violations.
-fn enumerate<T: Float>(
+pub(crate) fn enumerate<T: Float>(
     table: &[Option<Entry<T>>],
     b: &[T],
     allowed: u32,
@@ -191,4 +204,159 @@ fn enumerate<T: Float>(
         steps: 0,
         enumerated: true,
     }
+}
+
+/// The signature of a solver specialised for one column count.
+pub type FixedSolver =
+    fn(&[Option<Entry<f64>>], &[f64], u32, u32, &mut [f64], &mut [f64]) -> Outcome;
+
+/// The same block principal pivoting as [`solve_pixel`] (non-negative solvers), with the
+/// column count fixed at compile time so the small vectors stay in registers and the
+/// loops unroll. `tests/it/unmix.rs` checks it against [`solve_pixel`].
+#[inline(always)]
+fn solve_fixed_body<const M: usize>(
+    table: &[Option<Entry<f64>>],
+    b: &[f64],
+    allowed: u32,
+    start: u32,
+    a: &mut [f64],
+    work: &mut [f64],
+) -> Outcome {
+    let b: &[f64; M] = b[..M].try_into().expect("M columns");
+    let scale = b.iter().fold(0.0f64, |s, v| s.max(v.abs()));
+    let tol = tolerance(scale);
+    let mut p = start & allowed;
+    let mut best = u32::MAX;
+    let mut stalled = 0;
+    for step in 0..(4 * M as u32 + 8) {
+        let Some(entry) = table.get(p as usize).and_then(|e| e.as_ref()) else {
+            break;
+        };
+        let map = &entry.map[..2 * M * M];
+        let mut x: [f64; M] = entry.off[..M].try_into().expect("M offsets");
+        for j in 0..M {
+            let col: &[f64; M] = map[j * 2 * M..j * 2 * M + M].try_into().expect("M rows");
+            for i in 0..M {
+                x[i] = col[i].mul_add(b[j], x[i]);
+            }
+        }
+        let mut flip = 0u32;
+        for i in 0..M {
+            if p & (1 << i) != 0 && x[i] < -tol {
+                flip |= 1 << i;
+            }
+        }
+        if p != allowed || flip != 0 {
+            let mut mu: [f64; M] = entry.off[M..2 * M].try_into().expect("M offsets");
+            for j in 0..M {
+                let col: &[f64; M] = map[j * 2 * M + M..j * 2 * M + 2 * M]
+                    .try_into()
+                    .expect("M rows");
+                for i in 0..M {
+                    mu[i] = col[i].mul_add(b[j], mu[i]);
+                }
+            }
+            for i in 0..M {
+                let bit = 1u32 << i;
+                if allowed & bit != 0 && p & bit == 0 && mu[i] < -tol {
+                    flip |= bit;
+                }
+            }
+        }
+        let count = flip.count_ones();
+        if count == 0 {
+            for i in 0..M {
+                a[i] = if p & (1 << i) != 0 {
+                    x[i].max(0.0)
+                } else {
+                    0.0
+                };
+            }
+            return Outcome {
+                passive: p,
+                steps: step,
+                enumerated: false,
+            };
+        }
+        if count < best {
+            best = count;
+            stalled = 0;
+            p ^= flip;
+        } else {
+            stalled += 1;
+            if stalled >= 3 {
+                p ^= 1u32 << (31 - flip.leading_zeros());
+            } else {
+                p ^= flip;
+            }
+        }
+    }
+    enumerate(table, b, allowed, a, work)
+}
+
+fn solve_fixed<const M: usize>(
+    table: &[Option<Entry<f64>>],
+    b: &[f64],
+    allowed: u32,
+    start: u32,
+    a: &mut [f64],
+    work: &mut [f64],
+) -> Outcome {
+    solve_fixed_body::<M>(table, b, allowed, start, a, work)
+}
+
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx2,fma")]
+unsafe fn solve_fixed_avx2<const M: usize>(
+    table: &[Option<Entry<f64>>],
+    b: &[f64],
+    allowed: u32,
+    start: u32,
+    a: &mut [f64],
+    work: &mut [f64],
+) -> Outcome {
+    solve_fixed_body::<M>(table, b, allowed, start, a, work)
+}
+
+#[cfg(target_arch = "x86_64")]
+fn solve_fixed_x86<const M: usize>(
+    table: &[Option<Entry<f64>>],
+    b: &[f64],
+    allowed: u32,
+    start: u32,
+    a: &mut [f64],
+    work: &mut [f64],
+) -> Outcome {
+    // SAFETY: chosen by `fixed_solver` only after run-time detection of AVX2 and FMA.
+    unsafe { solve_fixed_avx2::<M>(table, b, allowed, start, a, work) }
+}
+
+/// Whether the AVX2 + FMA paths may be used on this processor (run-time detection).
+pub fn avx2_available() -> bool {
+    #[cfg(target_arch = "x86_64")]
+    {
+        std::is_x86_feature_detected!("avx2") && std::is_x86_feature_detected!("fma")
+    }
+    #[cfg(not(target_arch = "x86_64"))]
+    {
+        false
+    }
+}
+
+/// The specialised non-negative solver for `m` columns (1–12), using AVX2 + FMA when
+/// `vector` is true (callers pass [`avx2_available`]); `None` beyond 12 columns.
+pub fn fixed_solver(m: usize, vector: bool) -> Option<FixedSolver> {
+    macro_rules! pick {
+        ($($n:literal)*) => {
+            match (m, vector) {
+                $(
+                    #[cfg(target_arch = "x86_64")]
+                    ($n, true) => Some(solve_fixed_x86::<$n> as FixedSolver),
+                    ($n, _) => Some(solve_fixed::<$n> as FixedSolver),
+                )*
+                _ => None,
+            }
+        };
+    }
+    pick!(1 2 3 4 5 6 7 8 9 10 11 12)
 }

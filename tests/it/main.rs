@@ -10,3 +10,4 @@ mod library_cli;
 mod roundtrip;
 mod support;
 mod unmix;
+mod unmix_cli;
