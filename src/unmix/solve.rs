@@ -241,8 +241,8 @@ fn solve_fixed_body<const M: usize>(
             }
         }
         let mut flip = 0u32;
-        for i in 0..M {
-            if p & (1 << i) != 0 && x[i] < -tol {
+        for (i, xi) in x.iter().enumerate() {
+            if p & (1 << i) != 0 && *xi < -tol {
                 flip |= 1 << i;
             }
         }
@@ -256,9 +256,9 @@ fn solve_fixed_body<const M: usize>(
                     mu[i] = col[i].mul_add(b[j], mu[i]);
                 }
             }
-            for i in 0..M {
+            for (i, mi) in mu.iter().enumerate() {
                 let bit = 1u32 << i;
-                if allowed & bit != 0 && p & bit == 0 && mu[i] < -tol {
+                if allowed & bit != 0 && p & bit == 0 && *mi < -tol {
                     flip |= bit;
                 }
             }
