@@ -103,6 +103,34 @@ def main():
             if not np.allclose(ra_dec, ref, rtol=1e-12):
                 sys.exit("spatial WCS differs")
         print("ok  backplanes and spatial WCS survive")
+        check_results_folder(thiomap, tmp)
+
+
+def check_results_folder(thiomap, tmp):
+    """The unmixing products and a demo scene's truth planes are valid FITS to astropy."""
+    import json
+    root = os.path.join(HERE, "..", "..")
+    cube = os.path.join(root, "demo-cubes", "brimveil-tile-spectrometer24.fits")
+    out = os.path.join(tmp, "results")
+    subprocess.run([thiomap, "unmix", cube, "--out", out], check=True, stderr=subprocess.DEVNULL)
+    with open(os.path.join(out, "summary.json")) as f:
+        ids = json.load(f)["endmembers"]
+    for name in ("abundance.fits", "stderr.fits"):
+        with fits.open(os.path.join(out, name)) as f:
+            f.verify("exception")
+            h = f[0].header
+            if f[0].data.shape != (len(ids), 96, 96):
+                sys.exit(f"{name}: shape {f[0].data.shape}")
+            names = [h[f"PLANE{i + 1}"] for i in range(len(ids))]
+            if names != ids:
+                sys.exit(f"{name}: planes {names} != endmembers {ids}")
+    with fits.open(os.path.join(out, "fit-rmse.fits")) as f:
+        f.verify("exception")
+    with fits.open(os.path.join(root, "demo-cubes", "brimveil-tile-spectrometer24.truth.fits.gz")) as f:
+        f.verify("exception")
+        if [h.name for h in f] != ["PRIMARY", "UNITS", "CORE", "HOTSPOT"]:
+            sys.exit("truth planes: unexpected extensions")
+    print("ok  unmix results (abundance, stderr, fit-rmse) and demo truth planes pass verify('exception')")
 
 
 if __name__ == "__main__":
