@@ -7,10 +7,8 @@ use criterion::{criterion_group, criterion_main, Criterion};
 use ndarray::{Array2, Array3};
 use rand::{Rng, SeedableRng};
 use rand_chacha::ChaCha8Rng;
-use thiomap::cube::{Band, BandTable, Cube, CubeInfo, Format, Response};
-use thiomap::library::resample::Resampled;
-use thiomap::library::Class;
-use thiomap::unmix::{unmix, Model, RunOptions, Solver, Subsets, UnmixParams};
+use thiomap::cube::{Band, BandTable, Cube, Response};
+use thiomap::unmix::{unmix, Model, RunOptions, Solver};
 
 const B: usize = 32;
 const M: usize = 8;
@@ -70,49 +68,17 @@ fn problem(sparse: bool) -> (Model, Cube) {
             }
         }
     }
-    let resampled = Resampled {
-        ids: (0..M).map(|j| format!("m{j}")).collect(),
-        classes: vec![Class::Other; M],
-        centres_um: (0..B).map(|i| 0.4 + 0.05 * i as f64).collect(),
-        matrix: e,
-    };
-    let params = UnmixParams {
-        solver: Solver::Fcls,
-        shade: false,
-        subsets: Subsets::Off,
-        groups: false,
-        force: true,
-        ..Default::default()
-    };
-    let model = Model::build(&resampled, &params).expect("a well-posed problem");
+    let model = Model::from_matrix(e, Solver::Fcls).expect("a well-posed problem");
     let bands = BandTable::new(
-        resampled
-            .centres_um
-            .iter()
-            .map(|&c| Band {
-                centre_um: c,
+        (0..B)
+            .map(|i| Band {
+                centre_um: 0.4 + 0.05 * i as f64,
                 response: Response::Point,
             })
             .collect(),
     )
     .expect("increasing centres");
-    let cube = Cube {
-        info: CubeInfo {
-            path: "bench".into(),
-            format: Format::Npy,
-            rows: SIDE,
-            cols: SIDE,
-            bands,
-            quantity: Default::default(),
-            spatial_wcs: vec![],
-            about: Default::default(),
-            inputs: vec![],
-        },
-        valid: Array2::from_elem((SIDE, SIDE), true),
-        data,
-        nonfinite_samples: 0,
-        backplanes: Default::default(),
-    };
+    let cube = Cube::from_pixels(data, bands);
     (model, cube)
 }
 

@@ -9,10 +9,8 @@ use std::time::Instant;
 
 use ndarray::{Array2, Array3};
 use ndarray_npy::read_npy;
-use thiomap::cube::{Band, BandTable, Cube, CubeInfo, Format, Response};
-use thiomap::library::resample::Resampled;
-use thiomap::library::Class;
-use thiomap::unmix::{unmix, Model, RunOptions, Solver, Subsets, UnmixParams};
+use thiomap::cube::{Band, BandTable, Cube, Response};
+use thiomap::unmix::{unmix, Model, RunOptions, Solver};
 
 fn main() -> anyhow::Result<()> {
     let args: Vec<String> = std::env::args().skip(1).collect();
@@ -27,48 +25,16 @@ fn main() -> anyhow::Result<()> {
     let truth: Array2<f64> = read_npy(a_path)?;
     let (h, w, b) = y.dim();
     let m = e.ncols();
-    let resampled = Resampled {
-        ids: (0..m).map(|j| format!("m{j}")).collect(),
-        classes: vec![Class::Other; m],
-        centres_um: (0..b).map(|i| 0.4 + 0.05 * i as f64).collect(),
-        matrix: e,
-    };
-    let params = UnmixParams {
-        solver: Solver::Fcls,
-        shade: false,
-        subsets: Subsets::Off,
-        groups: false,
-        force: true,
-        ..Default::default()
-    };
-    let model = Model::build(&resampled, &params)?;
+    let model = Model::from_matrix(e, Solver::Fcls)?;
     let bands = BandTable::new(
-        resampled
-            .centres_um
-            .iter()
-            .map(|&c| Band {
-                centre_um: c,
+        (0..b)
+            .map(|i| Band {
+                centre_um: 0.4 + 0.05 * i as f64,
                 response: Response::Point,
             })
             .collect(),
     )?;
-    let cube = Cube {
-        info: CubeInfo {
-            path: y_path.into(),
-            format: Format::Npy,
-            rows: h,
-            cols: w,
-            bands,
-            quantity: Default::default(),
-            spatial_wcs: vec![],
-            about: Default::default(),
-            inputs: vec![],
-        },
-        valid: Array2::from_elem((h, w), true),
-        data: y,
-        nonfinite_samples: 0,
-        backplanes: Default::default(),
-    };
+    let cube = Cube::from_pixels(y, bands);
     let opts = RunOptions {
         report_shade: false,
         noise: None,
@@ -92,13 +58,7 @@ fn main() -> anyhow::Result<()> {
             }
         }
     }
-    let status = std::fs::read_to_string("/proc/self/status").unwrap_or_default();
-    let peak = status
-        .lines()
-        .find_map(|l| l.strip_prefix("VmHWM:"))
-        .and_then(|v| v.trim().trim_end_matches("kB").trim().parse::<u64>().ok())
-        .unwrap_or(0)
-        * 1024;
+    let peak = thiomap::output::results::peak_rss_bytes();
     println!(
         "{{\"seconds\": {median:.5}, \"pixels_per_s\": {:.1}, \"abundance_rmse\": {:.5}, \"peak_rss_bytes\": {peak}, \"enumerated\": {}, \"steps_per_pixel\": {:.3}}}",
         (h * w) as f64 / median,

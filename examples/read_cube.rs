@@ -6,16 +6,6 @@
 
 use std::time::Instant;
 
-fn peak_rss_bytes() -> u64 {
-    let status = std::fs::read_to_string("/proc/self/status").unwrap_or_default();
-    status
-        .lines()
-        .find_map(|l| l.strip_prefix("VmHWM:"))
-        .and_then(|v| v.trim().trim_end_matches("kB").trim().parse::<u64>().ok())
-        .map(|kb| kb * 1024)
-        .unwrap_or(0)
-}
-
 fn main() -> anyhow::Result<()> {
     let mut args = std::env::args().skip(1);
     let path = args
@@ -33,7 +23,7 @@ fn main() -> anyhow::Result<()> {
     let checksum: f64 = cube.data.iter().step_by(4099).map(|v| *v as f64).sum();
     println!(
         "{{\"seconds\": {seconds:.4}, \"peak_rss_bytes\": {}, \"cube_f32_bytes\": {}, \"checksum\": {checksum}}}",
-        peak_rss_bytes(),
+        thiomap::output::results::peak_rss_bytes(),
         cube.info.f32_bytes()
     );
     Ok(())

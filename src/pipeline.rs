@@ -3,7 +3,7 @@
 //! build on the same stages. Progress and messages go through [`Progress`], so this
 //! module never prints.
 
-use std::path::{Path, PathBuf};
+use std::path::Path;
 use std::time::Instant;
 
 use serde::Serialize;
@@ -339,25 +339,4 @@ pub fn write_timings(
             "host": std::fs::read_to_string("/etc/hostname").unwrap_or_default().trim(),
         }),
     )
-}
-
-/// The files of a results folder that unmixing writes, for checks and docs.
-pub fn unmix_files(dir: &Path, ids: &[String]) -> Vec<PathBuf> {
-    let mut v: Vec<PathBuf> = [
-        "abundance.fits",
-        "stderr.fits",
-        "fit-rmse.fits",
-        "fit-rmse.png",
-        "summary.json",
-        "run.json",
-        "timings.json",
-    ]
-    .iter()
-    .map(|f| dir.join(f))
-    .collect();
-    v.extend(
-        ids.iter()
-            .map(|id| dir.join("abundance").join(format!("{id}.png"))),
-    );
-    v
 }

@@ -224,6 +224,30 @@ pub struct Cube {
 }
 
 impl Cube {
+    /// A cube held only in memory, from (row, column, band) samples and their bands, with
+    /// the mask computed from the samples (for benchmarks and tests).
+    pub fn from_pixels(data: Array3<f32>, bands: BandTable) -> Cube {
+        let (rows, cols, _) = data.dim();
+        let block = Block::from_samples(0, data);
+        Cube {
+            info: CubeInfo {
+                path: PathBuf::from("memory"),
+                format: Format::Npy,
+                rows,
+                cols,
+                bands,
+                quantity: Quantity::Undeclared,
+                spatial_wcs: Vec::new(),
+                about: About::default(),
+                inputs: Vec::new(),
+            },
+            data: block.data,
+            valid: block.valid,
+            nonfinite_samples: block.nonfinite_samples,
+            backplanes: Backplanes::new(),
+        }
+    }
+
     pub fn nodata_pixels(&self) -> usize {
         self.valid.iter().filter(|v| !**v).count()
     }

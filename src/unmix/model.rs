@@ -119,6 +119,36 @@ impl Model {
         ((1u64 << self.columns()) - 1) as u32
     }
 
+    /// A model straight from a matrix E (bands × members): no library, groups, shade or
+    /// subsets, the guard bypassed — for benchmarks and reference checks.
+    pub fn from_matrix(e: Array2<f64>, solver: Solver) -> Result<Model, ModelError> {
+        let (b, m) = e.dim();
+        let r = Resampled {
+            ids: (0..m).map(|j| format!("m{j}")).collect(),
+            classes: (0..m)
+                .map(|j| {
+                    // Alternate classes so that no two columns are ever grouped.
+                    if j % 2 == 0 {
+                        crate::library::Class::Other
+                    } else {
+                        crate::library::Class::Silicate
+                    }
+                })
+                .collect(),
+            centres_um: (0..b).map(|i| 0.4 + 0.01 * i as f64).collect(),
+            matrix: e,
+        };
+        let p = UnmixParams {
+            solver,
+            shade: false,
+            subsets: Subsets::Off,
+            groups: false,
+            force: true,
+            ..Default::default()
+        };
+        Model::build(&r, &p)
+    }
+
     /// Builds the model for `resampled` (the library at the cube's bands).
     pub fn build(r: &Resampled, p: &UnmixParams) -> Result<Model, ModelError> {
         let diag = diagnose(r, p.group_angle_deg);

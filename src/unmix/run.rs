@@ -222,35 +222,52 @@ impl Kernel {
                 res.extend(fit64.iter().map(|d| *d as f32));
             }
         } else {
-            fit32.iter_mut().for_each(|v| *v = 0.0);
-            for (col, &aj) in self.ecol32.chunks_exact(nb).zip(a) {
-                let aj = aj as f32;
-                for (f, e) in fit32.iter_mut().zip(col) {
-                    *f += e * aj;
-                }
+            // Eight bands at a time: the fit stays in registers while the members are
+            // added, then the squared residuals go into eight f32 lanes (positive terms, no
+            // cancellation — it is the Gram form yᵀy − 2aᵀb + aᵀGa that would need f64).
+            let mat = a32_len(self, nb);
+            let mut a32 = [0f32; 16];
+            for (d, s) in a32.iter_mut().zip(&a[..mat]) {
+                *d = *s as f32;
             }
-            // Squares of residuals are summed in eight f32 lanes: positive terms, no
-            // cancellation (the Gram form yᵀy − 2aᵀb + aᵀGa is what would need f64).
             let mut lanes = [0f32; 8];
-            let mut fits = fit32.chunks_exact(8);
-            let mut ys = y.chunks_exact(8);
-            for (f, yy) in (&mut fits).zip(&mut ys) {
-                for k in 0..8 {
-                    let d = yy[k] - f[k];
-                    lanes[k] += d * d;
+            let full = nb / 8 * 8;
+            for k0 in (0..full).step_by(8) {
+                let mut acc = [0f32; 8];
+                for (j, aj) in a32[..mat].iter().enumerate() {
+                    let col: &[f32; 8] = self.ecol32[j * nb + k0..j * nb + k0 + 8]
+                        .try_into()
+                        .expect("eight bands");
+                    for t in 0..8 {
+                        acc[t] += col[t] * aj;
+                    }
+                }
+                let yy: &[f32; 8] = y[k0..k0 + 8].try_into().expect("eight bands");
+                for t in 0..8 {
+                    let d = yy[t] - acc[t];
+                    fit32[k0 + t] = d;
+                    lanes[t] += d * d;
                 }
             }
-            for (f, yv) in fits.remainder().iter().zip(ys.remainder()) {
-                let d = yv - f;
+            for k in full..nb {
+                let f: f32 = (0..mat).map(|j| self.ecol32[j * nb + k] * a32[j]).sum();
+                let d = y[k] - f;
+                fit32[k] = d;
                 lanes[0] += d * d;
             }
             rss = lanes.iter().map(|v| *v as f64).sum();
             if let Some(res) = res {
-                res.extend(fit32.iter().zip(y).map(|(f, yv)| yv - f));
+                res.extend_from_slice(fit32);
             }
         }
         rss
     }
+}
+
+/// The number of material columns of a kernel for `nb` bands.
+#[inline]
+fn a32_len(k: &Kernel, nb: usize) -> usize {
+    k.ecol32.len() / nb.max(1)
 }
 
 /// Unmixes every pixel of `cube`. `progress` is called with the number of rows finished.
@@ -289,6 +306,10 @@ pub fn unmix<T: Real>(
         super::solve::fixed_solver(m, super::solve::avx2_available())
     } else {
         None
+    };
+    let solve = |b: &[f64], allowed: u32, start: u32, a: &mut [f64], work: &mut [f64]| match fixed {
+        Some(f) => f(table, b, allowed, start, a, work),
+        None => solve_pixel(table, b, allowed, start, nonneg, a, work),
     };
     let sum_to_one = model.solver.sum_to_one() as u8 as f64;
     let done = AtomicUsize::new(0);
@@ -342,12 +363,7 @@ pub fn unmix<T: Real>(
                     kernel.ety(y, &mut b);
                     let (passive, enumerated, pick) = match model.subset_size {
                         None => {
-                            let o = match fixed {
-                                Some(f) => f(table, &b, full, start, &mut a, &mut work),
-                                None => {
-                                    solve_pixel(table, &b, full, start, nonneg, &mut a, &mut work)
-                                }
-                            };
+                            let o = solve(&b, full, start, &mut a, &mut work);
                             start = o.passive;
                             counts.steps += o.steps as usize;
                             (o.passive, o.enumerated, 0u16)
@@ -364,9 +380,7 @@ pub fn unmix<T: Real>(
                             let mut best_score = f64::INFINITY;
                             let mut best_out = (0u32, false, 0u16);
                             for (s, &allowed) in model.subsets.iter().enumerate() {
-                                let o = solve_pixel(
-                                    table, &b, allowed, allowed, nonneg, &mut a, &mut work,
-                                );
+                                let o = solve(&b, allowed, allowed, &mut a, &mut work);
                                 let rss = gram_rss(&g, &a, &b, yy).max(1e-30);
                                 let k = a.iter().filter(|v| **v > 0.0).count() as f64;
                                 let score = n * (rss / n).ln() + k * n.ln();

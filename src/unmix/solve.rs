@@ -1,5 +1,6 @@
-//! The per-pixel active-set solver on precomputed passive-set maps, generic over f32 (the
-//! fast path) and f64 (the reference path).
+//! The per-pixel active-set solver on precomputed passive-set maps. The M-dimensional
+//! steps run in f64 on both the f32 (fast) and f64 (reference) paths, which differ in how
+//! Eᵀy is formed (see `run`); the enumeration fallback is generic over the float type.
 //!
 //! Method: block principal pivoting (Júdice & Pires 1994; Portugal, Júdice & Vicente
 //! 1994) applied to the KKT conditions of NNLS (Lawson & Hanson 1974) and FCLS (Heinz &
@@ -24,16 +25,9 @@ fn tolerance<T: Float>(scale: T) -> T {
 #[inline]
 fn evaluate<T: Float>(e: &Entry<T>, b: &[T], out: &mut [T]) {
     let n = out.len();
-    evaluate_rows(e, b, out, 0, n);
-}
-
-/// Evaluates rows `lo..hi` of an entry into `out[lo..hi]`.
-#[inline]
-fn evaluate_rows<T: Float>(e: &Entry<T>, b: &[T], out: &mut [T], lo: usize, hi: usize) {
-    let n = out.len();
-    out[lo..hi].copy_from_slice(&e.off[lo..hi]);
+    out.copy_from_slice(&e.off);
     for (col, &bj) in e.map.chunks_exact(n).zip(b) {
-        for (o, c) in out[lo..hi].iter_mut().zip(&col[lo..hi]) {
+        for (o, c) in out.iter_mut().zip(col) {
             *o = *o + *c * bj;
         }
     }
@@ -75,15 +69,16 @@ pub struct Outcome {
 /// Solves one pixel: minimises over passive sets within `allowed` (a mask), starting from
 /// `start`. `b` is Eᵀy (M values); `a` receives the M abundances (0 outside the passive
 /// set); `work` must hold 2M values. Without `non_negative` (unconstrained and
-/// sum-to-one solvers) the `allowed` set is solved once, signs unrestricted.
-pub fn solve_pixel<T: Float>(
-    table: &[Option<Entry<T>>],
-    b: &[T],
+/// sum-to-one solvers) the `allowed` set is solved once, signs unrestricted. With it, the
+/// portable specialised solver runs (the driver picks the AVX2 variant when available).
+pub fn solve_pixel(
+    table: &[Option<Entry<f64>>],
+    b: &[f64],
     allowed: u32,
     start: u32,
     non_negative: bool,
-    a: &mut [T],
-    work: &mut [T],
+    a: &mut [f64],
+    work: &mut [f64],
 ) -> Outcome {
     let m = b.len();
     if !non_negative {
@@ -94,11 +89,11 @@ pub fn solve_pixel<T: Float>(
                     a[i] = if allowed & (1 << i) != 0 {
                         work[i]
                     } else {
-                        T::zero()
+                        0.0
                     };
                 }
             }
-            None => a.iter_mut().for_each(|v| *v = T::nan()),
+            None => a.iter_mut().for_each(|v| *v = f64::NAN),
         }
         return Outcome {
             passive: allowed,
@@ -106,53 +101,10 @@ pub fn solve_pixel<T: Float>(
             enumerated: false,
         };
     }
-    let scale = b.iter().fold(T::zero(), |s, v| s.max(v.abs()));
-    let tol = tolerance(scale);
-    let mut p = start & allowed;
-    let mut best = u32::MAX;
-    let mut stalled = 0;
-    for step in 0..(4 * m as u32 + 8) {
-        let Some(entry) = table.get(p as usize).and_then(|e| e.as_ref()) else {
-            break;
-        };
-        // Abundances first; when every allowed member is passive and none is negative
-        // there are no multipliers to test and the point is optimal.
-        evaluate_rows(entry, b, work, 0, m);
-        let (count, flip) = if p == allowed && (0..m).all(|i| p & (1 << i) == 0 || work[i] >= -tol)
-        {
-            (0, 0)
-        } else {
-            evaluate_rows(entry, b, work, m, 2 * m);
-            violations(work, m, p, allowed, tol)
-        };
-        if count == 0 {
-            for i in 0..m {
-                a[i] = if p & (1 << i) != 0 {
-                    work[i].max(T::zero())
-                } else {
-                    T::zero()
-                };
-            }
-            return Outcome {
-                passive: p,
-                steps: step,
-                enumerated: false,
-            };
-        }
-        if count < best {
-            best = count;
-            stalled = 0;
-            p ^= flip;
-        } else {
-            stalled += 1;
-            if stalled >= 3 {
-                p ^= 1u32 << (31 - flip.leading_zeros());
-            } else {
-                p ^= flip;
-            }
-        }
+    match fixed_solver(m, false) {
+        Some(solve) => solve(table, b, allowed, start, a, work),
+        None => enumerate(table, b, allowed, a, work),
     }
-    enumerate(table, b, allowed, a, work)
 }
 
 /// Exact fallback: the passive set within `allowed` whose solution satisfies the KKT

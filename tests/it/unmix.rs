@@ -4,8 +4,6 @@
 use ndarray::Array2;
 use rand::{Rng, SeedableRng};
 use rand_chacha::ChaCha8Rng;
-use thiomap::library::resample::Resampled;
-use thiomap::library::Class;
 use thiomap::unmix::model::Model;
 use thiomap::unmix::solve::solve_pixel;
 use thiomap::unmix::{Solver, Subsets, UnmixParams};
@@ -14,30 +12,7 @@ use super::support::fixture;
 
 /// A model straight from a matrix (no library, no groups, no shade).
 fn model(e: &Array2<f64>, solver: Solver) -> Model {
-    let (b, m) = e.dim();
-    let r = Resampled {
-        ids: (0..m).map(|i| format!("m{i}")).collect(),
-        classes: (0..m)
-            .map(|i| {
-                if i % 2 == 0 {
-                    Class::Other
-                } else {
-                    Class::Silicate
-                }
-            })
-            .collect(),
-        centres_um: (0..b).map(|i| 0.4 + 0.01 * i as f64).collect(),
-        matrix: e.clone(),
-    };
-    let p = UnmixParams {
-        solver,
-        shade: false,
-        subsets: Subsets::Off,
-        groups: false,
-        force: true,
-        ..Default::default()
-    };
-    Model::build(&r, &p).unwrap()
+    Model::from_matrix(e.clone(), solver).unwrap()
 }
 
 fn solve64(m: &Model, y: &[f64]) -> Vec<f64> {
@@ -352,4 +327,34 @@ fn imager_globe_abundances_match_the_truth_in_subset_mode() {
     );
     assert!(n > 4000);
     assert!(rmse <= 0.075, "abundance RMSE {rmse}");
+}
+
+#[test]
+fn the_vectorised_solver_agrees_with_the_portable_one() {
+    // The AVX2 + FMA variant is chosen at run time; the portable one is its fallback.
+    use thiomap::unmix::solve::{avx2_available, fixed_solver};
+    if !avx2_available() {
+        eprintln!("no AVX2 on this processor: only the portable solver runs here");
+        return;
+    }
+    let mut rng = ChaCha8Rng::seed_from_u64(5);
+    for _ in 0..200 {
+        let bands = rng.gen_range(8..32);
+        let m = rng.gen_range(2..=8);
+        let e = Array2::from_shape_fn((bands, m), |_| rng.gen_range(0.02..1.0));
+        let y: Vec<f64> = (0..bands).map(|_| rng.gen_range(0.0..1.0)).collect();
+        let md = model(&e, Solver::Fcls);
+        let b: Vec<f64> = (0..m)
+            .map(|j| (0..bands).map(|i| e[(i, j)] * y[i]).sum())
+            .collect();
+        let (mut a1, mut a2) = (vec![0.0; m], vec![0.0; m]);
+        let mut work = vec![0.0; 2 * m];
+        let full = md.full_mask();
+        let o1 = fixed_solver(m, false).unwrap()(&md.table64, &b, full, full, &mut a1, &mut work);
+        let o2 = fixed_solver(m, true).unwrap()(&md.table64, &b, full, full, &mut a2, &mut work);
+        assert_eq!(o1.passive, o2.passive);
+        for (x, z) in a1.iter().zip(&a2) {
+            assert!((x - z).abs() < 1e-12, "{a1:?} vs {a2:?}");
+        }
+    }
 }
