@@ -15,6 +15,7 @@ pub mod output;
 pub mod pipeline;
 pub mod recipe;
 pub mod render;
+pub mod units;
 pub mod unmix;
 
 /// The tool's version, recorded in every provenance file.

@@ -340,3 +340,215 @@ pub fn write_timings(
         }),
     )
 }
+
+/// Groups the unmixed pixels into units (the `map` stage after unmixing).
+pub fn run_units(
+    p: &Prepared,
+    out: &UnmixOutput,
+    recipe: &Recipe,
+    progress: &dyn Progress,
+) -> anyhow::Result<(crate::units::UnitMap, crate::units::MaterialSpectra)> {
+    let params = recipe
+        .unit_params()
+        .map_err(|e| anyhow::anyhow!("recipe: {e}"))?;
+    let rules = recipe.load_rules().map_err(anyhow::Error::msg)?;
+    progress.stage("units", None);
+    let materials: Vec<String> = out.ids.iter().filter(|i| *i != "shade").cloned().collect();
+    let spectra = crate::units::MaterialSpectra::new(&p.library, &materials);
+    let map = crate::units::classify(
+        out,
+        p.cube.backplanes.get(&crate::cube::Backplane::Emission),
+        &spectra,
+        &rules,
+        &p.library,
+        &params,
+    )
+    .map_err(|e| anyhow::anyhow!("{}: {e}", p.cube.info.path.display()))?;
+    if map
+        .units
+        .iter()
+        .filter(|u| u.class != crate::units::rules::UNEXPLAINED)
+        .count()
+        == 1
+    {
+        progress.warn("the map holds a single unit: the pixels are too alike to separate");
+    }
+    Ok((map, spectra))
+}
+
+/// The units part of `summary.json` (merged into the unmixing summary by `map`).
+pub fn units_summary(map: &crate::units::UnitMap) -> serde_json::Value {
+    let units: Vec<serde_json::Value> = map
+        .units
+        .iter()
+        .map(|u| {
+            let mut row = serde_json::json!({
+                "unit": u.unit, "label": u.label, "class": u.class, "pixels": u.pixels,
+                "area_fraction": u.area_fraction, "mean_rmse": u.mean_rmse,
+                "colour": hex(u.colour),
+            });
+            for (i, id) in map.ids.iter().enumerate() {
+                row[format!("mean_{id}")] = serde_json::json!(u.mean[i]);
+                row[format!("std_{id}")] = serde_json::json!(u.std[i]);
+            }
+            row
+        })
+        .collect();
+    serde_json::json!({
+        "units": units,
+        "classes": map.classes,
+        "unexplained_pixels": map.unexplained_pixels,
+        "unexplained_test": format!(
+            "fit RMSE above {} × the median fit RMSE ({:.3e})",
+            crate::units::UNEXPLAINED_FACTOR, map.noise_level
+        ),
+        "regions_before_min_area": map.regions_before,
+        "regions_after_min_area": map.regions_after,
+        "silhouette": map.silhouette.iter().map(|(k, s)| serde_json::json!({"units": k, "score": s})).collect::<Vec<_>>(),
+        "area_weighting": if map.area_weighted { "surface area: 1/cos(emission), emission capped at 80°" } else { "pixels" },
+    })
+}
+
+fn hex(c: [u8; 3]) -> String {
+    format!("#{:02x}{:02x}{:02x}", c[0], c[1], c[2])
+}
+
+/// Writes the units products: `units.fits`, `units.png`, `units-legend.svg`,
+/// `true-colour.png`, `units.csv`, `units-spectra.svg`.
+pub fn write_unit_products(
+    dir: &Path,
+    p: &Prepared,
+    out: &UnmixOutput,
+    map: &crate::units::UnitMap,
+) -> Result<(), crate::output::OutputError> {
+    use crate::output::OutputError;
+    let info = &p.cube.info;
+    let fail = |name: &str, e: String| OutputError::Io {
+        path: dir.join(name),
+        source: std::io::Error::other(e),
+    };
+    results::write_labels(
+        &dir.join("units.fits"),
+        &map.labels,
+        info,
+        "surface unit (0 = no data)",
+    )?;
+    let bottom = info.format.row0_at_bottom();
+    let unexplained = map
+        .units
+        .iter()
+        .find(|u| u.class == crate::units::rules::UNEXPLAINED)
+        .map(|u| u.unit as i16);
+    let colours = map
+        .units
+        .iter()
+        .map(|u| (u.unit as i16, u.colour))
+        .collect();
+    results::write_png(
+        &dir.join("units.png"),
+        &crate::render::maps::unit_map(map.labels.view(), &colours, unexplained, bottom),
+    )?;
+    let (tc, _) = crate::render::maps::true_colour(&p.cube);
+    results::write_png(
+        &dir.join("true-colour.png"),
+        &crate::render::maps::enlarge(&tc, 512),
+    )?;
+    let rows: Vec<crate::render::units::LegendRow> = map
+        .units
+        .iter()
+        .map(|u| crate::render::units::LegendRow {
+            unit: u.unit,
+            label: u.label.clone(),
+            class: u.class.clone(),
+            area_fraction: u.area_fraction,
+            colour: u.colour,
+            unexplained: Some(u.unit as i16) == unexplained,
+        })
+        .collect();
+    let note = if map.area_weighted {
+        "surface-area weighted"
+    } else {
+        "pixel fraction"
+    };
+    let legend =
+        crate::render::units::legend_svg(&rows, note).map_err(|e| fail("units-legend.svg", e))?;
+    crate::output::atomic::write_bytes(&dir.join("units-legend.svg"), legend.as_bytes())?;
+
+    // units.csv: unit, label, class, pixels, area_fraction, mean_<id>…, std_<id>…, mean_rmse, colour
+    let mut w = csv::Writer::from_writer(Vec::new());
+    let mut header: Vec<String> = ["unit", "label", "class", "pixels", "area_fraction"]
+        .iter()
+        .map(|s| s.to_string())
+        .collect();
+    header.extend(map.ids.iter().map(|id| format!("mean_{id}")));
+    header.extend(map.ids.iter().map(|id| format!("std_{id}")));
+    header.push("mean_rmse".into());
+    header.push("colour".into());
+    let csv_err = |e: csv::Error| fail("units.csv", e.to_string());
+    w.write_record(&header).map_err(csv_err)?;
+    for u in &map.units {
+        let mut row = vec![
+            u.unit.to_string(),
+            u.label.clone(),
+            u.class.clone(),
+            u.pixels.to_string(),
+            format!("{:.6}", u.area_fraction),
+        ];
+        row.extend(u.mean.iter().map(|v| format!("{v:.6}")));
+        row.extend(u.std.iter().map(|v| format!("{v:.6}")));
+        row.push(format!("{:.6e}", u.mean_rmse));
+        row.push(hex(u.colour));
+        w.write_record(&row).map_err(csv_err)?;
+    }
+    let bytes = w
+        .into_inner()
+        .map_err(|e| fail("units.csv", e.to_string()))?;
+    crate::output::atomic::write_bytes(&dir.join("units.csv"), &bytes)?;
+
+    // units-spectra.svg: observed mean ± 1σ and the modelled mean per unit.
+    let nb = info.bands.len();
+    let centres = info.bands.centres_um();
+    let mat = out.ids.iter().filter(|i| *i != "shade").count();
+    let shade_plane = out.ids.iter().position(|i| i == "shade");
+    let mut panels = Vec::new();
+    for u in &map.units {
+        let (mut sum, mut sq, mut model) = (vec![0.0; nb], vec![0.0; nb], vec![0.0; nb]);
+        let mut n = 0.0;
+        for ((r, c), l) in map.labels.indexed_iter() {
+            if *l as usize != u.unit {
+                continue;
+            }
+            n += 1.0;
+            let bright = shade_plane.map_or(1.0, |s| 1.0 - out.abundance[(r, c, s)] as f64);
+            for b in 0..nb {
+                let y = p.cube.data[(r, c, b)] as f64;
+                sum[b] += y;
+                sq[b] += y * y;
+                let fit: f64 = (0..mat)
+                    .map(|j| p.model.e[(b, j)] * out.abundance[(r, c, j)] as f64)
+                    .sum();
+                model[b] += bright * fit;
+            }
+        }
+        if n == 0.0 {
+            continue;
+        }
+        let mean: Vec<f64> = sum.iter().map(|s| s / n).collect();
+        let std: Vec<f64> = sq
+            .iter()
+            .zip(&mean)
+            .map(|(q, m)| (q / n - m * m).max(0.0).sqrt())
+            .collect();
+        panels.push(crate::render::units::UnitSpectrum {
+            title: format!("{}: {} ({} px)", u.unit, u.label, u.pixels),
+            colour: u.colour,
+            centres_um: centres.clone(),
+            mean,
+            std,
+            model: model.iter().map(|m| m / n).collect(),
+        });
+    }
+    let svg =
+        crate::render::units::spectra_svg(&panels).map_err(|e| fail("units-spectra.svg", e))?;
+    crate::output::atomic::write_bytes(&dir.join("units-spectra.svg"), svg.as_bytes())
+}

@@ -16,6 +16,13 @@
 //! exclude_bands = []
 //! residuals = false
 //! precision = "f32"         # f32 (fast) or f64 (reference)
+//! # map only:
+//! units = "auto"            # or K
+//! max_units = 10
+//! sample = 20000            # or "all"
+//! min_area = 4              # pixels
+//! rules = "embedded"        # or a rules file
+//! seed = 1
 //! ```
 //! Every key is optional; unknown keys are errors.
 
@@ -24,6 +31,7 @@ use std::path::Path;
 use serde::{Deserialize, Serialize};
 
 use crate::cube::select::BandSelection;
+use crate::units::UnitParams;
 use crate::unmix::{Solver, Subsets, UnmixParams};
 
 /// Every result-changing option of `unmix` (and later `map`).
@@ -44,6 +52,40 @@ pub struct Recipe {
     pub exclude_bands: Vec<usize>,
     pub residuals: bool,
     pub precision: String,
+    /// `map` only: the number of units, or "auto".
+    pub units: Count,
+    /// `map` only: the largest K tried by "auto".
+    pub max_units: usize,
+    /// `map` only: pixels k-means is fitted on, or "all".
+    pub sample: Count,
+    /// `map` only: the minimum mapping unit, pixels.
+    pub min_area: usize,
+    /// `map` only: "embedded" or a rules file.
+    pub rules: String,
+    /// `map` only: the seed of the clustering sample and initialisation.
+    pub seed: u64,
+}
+
+/// A count, or a word ("auto", "all") that stands for the default choice.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(untagged)]
+pub enum Count {
+    N(usize),
+    Word(String),
+}
+
+impl Count {
+    /// The number, `None` for the word `word`; any other word is an error.
+    pub fn number_or(&self, word: &str, key: &str) -> Result<Option<usize>, String> {
+        match self {
+            Count::N(n) => Ok(Some(*n)),
+            Count::Word(w) if w == word => Ok(None),
+            Count::Word(w) => w
+                .parse::<usize>()
+                .map(Some)
+                .map_err(|_| format!("{key} `{w}`: expected a number or \"{word}\"")),
+        }
+    }
 }
 
 impl Default for Recipe {
@@ -62,6 +104,12 @@ impl Default for Recipe {
             exclude_bands: Vec::new(),
             residuals: false,
             precision: "f32".into(),
+            units: Count::Word("auto".into()),
+            max_units: crate::units::DEFAULT_MAX_UNITS,
+            sample: Count::N(crate::units::DEFAULT_SAMPLE),
+            min_area: UnitParams::default().min_area,
+            rules: "embedded".into(),
+            seed: 1,
         }
     }
 }
@@ -105,6 +153,32 @@ impl Recipe {
             ));
         }
         Ok(p)
+    }
+
+    /// The checked units parameters (for `map`).
+    pub fn unit_params(&self) -> Result<UnitParams, String> {
+        let p = UnitParams {
+            units: self.units.number_or("auto", "units")?,
+            max_units: self.max_units,
+            sample: self.sample.number_or("all", "sample")?,
+            min_area: self.min_area,
+            seed: self.seed,
+        };
+        p.check().map_err(|e| e.to_string())?;
+        if self.max_units < 2 {
+            return Err(format!("max_units {}: at least 2", self.max_units));
+        }
+        Ok(p)
+    }
+
+    /// The naming rules the recipe names.
+    pub fn load_rules(&self) -> Result<crate::units::Rules, String> {
+        if self.rules == "embedded" {
+            return Ok(crate::units::Rules::default_rules());
+        }
+        let text = std::fs::read_to_string(&self.rules)
+            .map_err(|e| format!("{}: cannot read: {e}", self.rules))?;
+        crate::units::Rules::parse(&self.rules, &text)
     }
 
     pub fn selection(&self) -> BandSelection {

@@ -6,6 +6,7 @@ mod convert;
 mod demo;
 mod inspect;
 mod library;
+mod map;
 mod progress;
 mod unmix;
 
@@ -41,6 +42,7 @@ enum Command {
     Convert(convert::Args),
     Demo(demo::Args),
     Library(library::Args),
+    Map(map::Args),
     Unmix(unmix::Args),
 }
 
@@ -52,6 +54,7 @@ pub fn run() -> anyhow::Result<ExitCode> {
         Command::Convert(args) => convert::run(args),
         Command::Demo(args) => demo::run(args),
         Command::Library(args) => library::run(args),
+        Command::Map(args) => map::run(args),
         Command::Unmix(args) => unmix::run(args),
     }
 }

@@ -191,6 +191,27 @@ pub fn delta_e(a: [f64; 3], b: [f64; 3]) -> f64 {
     ((a[0] - b[0]).powi(2) + (a[1] - b[1]).powi(2) + (a[2] - b[2]).powi(2)).sqrt()
 }
 
+/// The inverse of the sRGB transfer function (IEC 61966-2-1).
+pub fn decode(encoded: f64) -> f64 {
+    if encoded <= 0.04045 {
+        encoded / 12.92
+    } else {
+        ((encoded + 0.055) / 1.055).powf(2.4)
+    }
+}
+
+/// CIE L*a*b* (D65) of an 8-bit sRGB colour.
+pub fn srgb8_to_lab(rgb: [u8; 3]) -> [f64; 3] {
+    // Linear sRGB → XYZ (IEC 61966-2-1), white Y = 1.
+    const M: [[f64; 3]; 3] = [
+        [0.4124564, 0.3575761, 0.1804375],
+        [0.2126729, 0.7151522, 0.0721750],
+        [0.0193339, 0.1191920, 0.9503041],
+    ];
+    let lin = rgb.map(|v| decode(v as f64 / 255.0));
+    xyz_to_lab(M.map(|row| row[0] * lin[0] + row[1] * lin[1] + row[2] * lin[2]))
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;

@@ -138,3 +138,52 @@ pub fn grey_map(
     }
     RgbImage::from_raw(w as u32, h as u32, buf).expect("buffer matches the size")
 }
+
+/// Enlarges a picture by whole pixels to about `target` pixels across (nearest neighbour).
+pub fn enlarge(img: &RgbImage, target: u32) -> RgbImage {
+    let f = (target / img.width().max(img.height()).max(1)).max(1);
+    if f == 1 {
+        return img.clone();
+    }
+    image::imageops::resize(
+        img,
+        img.width() * f,
+        img.height() * f,
+        image::imageops::FilterType::Nearest,
+    )
+}
+
+/// A unit map: each unit in its colour, unexplained pixels as a magenta and black
+/// checkerboard (a pattern no unit colour can be), no-data in [`NODATA_RGB`]. Enlarged to
+/// about 512 pixels across.
+pub fn unit_map(
+    labels: ndarray::ArrayView2<i16>,
+    colours: &std::collections::BTreeMap<i16, [u8; 3]>,
+    unexplained: Option<i16>,
+    row0_at_bottom: bool,
+) -> RgbImage {
+    let (rows, cols) = labels.dim();
+    let f = (512 / rows.max(cols)).max(2);
+    let mut img = RgbImage::new((cols * f) as u32, (rows * f) as u32);
+    for r in 0..rows {
+        let pr = if row0_at_bottom { rows - 1 - r } else { r };
+        for c in 0..cols {
+            let l = labels[(r, c)];
+            for dy in 0..f {
+                for dx in 0..f {
+                    let rgb = if Some(l) == unexplained {
+                        if (dx * 2 / f + dy * 2 / f) % 2 == 0 {
+                            [255, 0, 255]
+                        } else {
+                            [0, 0, 0]
+                        }
+                    } else {
+                        colours.get(&l).copied().unwrap_or(NODATA_RGB)
+                    };
+                    img.put_pixel((c * f + dx) as u32, (pr * f + dy) as u32, image::Rgb(rgb));
+                }
+            }
+        }
+    }
+    img
+}

@@ -4,3 +4,4 @@
 pub mod colour;
 pub mod maps;
 pub mod plot;
+pub mod units;

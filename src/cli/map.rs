@@ -1,0 +1,123 @@
+//! `thiomap map CUBE --out DIR`: the main job — unmix every pixel, group the abundances
+//! into named, coloured surface units, and write the whole results folder.
+
+use std::process::ExitCode;
+
+use thiomap::output::results;
+use thiomap::pipeline::{self, Progress, Timings};
+use thiomap::recipe::{Count, Recipe};
+
+use super::progress::Bar;
+use super::unmix::UnmixArgs;
+
+/// Map surface units: unmix, cluster into units, name and colour them, write everything.
+#[derive(Debug, clap::Args)]
+#[command(after_help = "Examples:\n  \
+    thiomap map demo-cubes/brimveil-globe-mapper96.fits --out results/globe\n  \
+    thiomap map scene.fits --out r --units 6 --min-area 9\n  \
+    thiomap map scene.fits --out r --recipe recipe.toml --seed 7\n\n\
+    Writes everything `unmix` writes plus units.fits, units.png, units-legend.svg, \
+    true-colour.png, units.csv and units-spectra.svg; summary.json gains `units` and \
+    `classes`. The maps are analysis aids: decisions about spacecraft pointing or fieldwork \
+    at active vents defer to mission flight rules, local codes and licensed practice.")]
+pub struct Args {
+    #[command(flatten)]
+    unmix: UnmixArgs,
+    /// The number of units, or `auto` (default: the K in 2–10 with the best silhouette).
+    #[arg(long, value_name = "K|auto")]
+    units: Option<String>,
+    /// The largest K `auto` tries. Default 10.
+    #[arg(long, value_name = "K")]
+    max_units: Option<usize>,
+    /// Pixels k-means is fitted on (seeded sample), or `all`. Default 20000.
+    #[arg(long, value_name = "N|all")]
+    sample: Option<String>,
+    /// Minimum mapping unit: 8-connected regions smaller than this many pixels merge into
+    /// the most similar neighbouring unit. Default 4.
+    #[arg(long, value_name = "PIXELS")]
+    min_area: Option<usize>,
+    /// A TOML file of naming rules (default: the shipped rules).
+    #[arg(long, value_name = "FILE")]
+    rules: Option<std::path::PathBuf>,
+    /// Seed of the clustering sample and initialisation. Default 1.
+    #[arg(long, value_name = "N")]
+    seed: Option<u64>,
+}
+
+fn count(s: &str) -> Count {
+    s.parse::<usize>()
+        .map(Count::N)
+        .unwrap_or_else(|_| Count::Word(s.to_string()))
+}
+
+impl Args {
+    fn recipe(&self) -> anyhow::Result<Recipe> {
+        let mut r = self.unmix.recipe()?;
+        if let Some(u) = &self.units {
+            r.units = count(u);
+        }
+        if let Some(k) = self.max_units {
+            r.max_units = k;
+        }
+        if let Some(s) = &self.sample {
+            r.sample = count(s);
+        }
+        if let Some(a) = self.min_area {
+            r.min_area = a;
+        }
+        if let Some(p) = &self.rules {
+            r.rules = p.display().to_string();
+        }
+        if let Some(s) = self.seed {
+            r.seed = s;
+        }
+        r.unit_params().map_err(anyhow::Error::msg)?;
+        r.load_rules().map_err(anyhow::Error::msg)?;
+        Ok(r)
+    }
+}
+
+pub fn run(args: Args) -> anyhow::Result<ExitCode> {
+    let recipe = args.recipe()?;
+    let a = &args.unmix;
+    let threads = a.threads.init()?;
+    results::prepare(&a.out, a.overwrite)?;
+    let bar = Bar::new();
+    let mut timings = Timings::default();
+    let prepared = pipeline::prepare(&a.cube, a.hdu.clone(), &recipe, &mut timings)?;
+    for w in &prepared.warnings {
+        bar.warn(w);
+    }
+    let out = timings.time("unmix", || pipeline::run_unmix(&prepared, &recipe, &bar));
+    let (map, _) = timings.time("units", || {
+        pipeline::run_units(&prepared, &out, &recipe, &bar)
+    })?;
+    bar.finish();
+    timings.time("write", || -> anyhow::Result<()> {
+        pipeline::write_unmix_products(&a.out, &prepared, &out)?;
+        pipeline::write_unit_products(&a.out, &prepared, &out, &map)?;
+        Ok(())
+    })?;
+    let mut summary =
+        serde_json::to_value(pipeline::unmix_summary(&prepared, &out, &prepared.warnings))?;
+    if let (Some(s), serde_json::Value::Object(u)) =
+        (summary.as_object_mut(), pipeline::units_summary(&map))
+    {
+        s.extend(u);
+    }
+    results::write_json(&a.out.join("summary.json"), &summary)?;
+    pipeline::write_timings(&a.out, &timings, threads)?;
+    let record = pipeline::run_record("map", &prepared, &recipe)?;
+    results::write_json(&a.out.join("run.json"), &record)?;
+    eprintln!("mapped {} units into {}:", map.units.len(), a.out.display());
+    for u in &map.units {
+        eprintln!(
+            "  {:>2}  {:<48} [{}] {:5.1} %",
+            u.unit,
+            u.label,
+            u.class,
+            100.0 * u.area_fraction
+        );
+    }
+    Ok(ExitCode::SUCCESS)
+}

@@ -1,0 +1,147 @@
+//! Connected regions of a unit map (8-connected) and the minimum mapping unit: regions
+//! smaller than it are merged into the most similar neighbouring unit (nearest centroid
+//! in feature space), smallest first, until none is left or none can merge.
+
+use std::collections::VecDeque;
+
+use ndarray::Array2;
+
+/// 8-connected regions of non-zero labels: a region id per pixel (0 = none) and each
+/// region's (label, size); region ids count from 1.
+pub fn regions(labels: &Array2<i16>) -> (Array2<u32>, Vec<(i16, usize)>) {
+    let (rows, cols) = labels.dim();
+    let mut id = Array2::<u32>::zeros((rows, cols));
+    let mut info = Vec::new();
+    let mut queue = VecDeque::new();
+    for r in 0..rows {
+        for c in 0..cols {
+            let l = labels[(r, c)];
+            if l == 0 || id[(r, c)] != 0 {
+                continue;
+            }
+            let rid = info.len() as u32 + 1;
+            let mut size = 0;
+            id[(r, c)] = rid;
+            queue.push_back((r, c));
+            while let Some((y, x)) = queue.pop_front() {
+                size += 1;
+                for dy in -1i64..=1 {
+                    for dx in -1i64..=1 {
+                        let (ny, nx) = (y as i64 + dy, x as i64 + dx);
+                        if ny < 0 || nx < 0 || ny >= rows as i64 || nx >= cols as i64 {
+                            continue;
+                        }
+                        let (ny, nx) = (ny as usize, nx as usize);
+                        if labels[(ny, nx)] == l && id[(ny, nx)] == 0 {
+                            id[(ny, nx)] = rid;
+                            queue.push_back((ny, nx));
+                        }
+                    }
+                }
+            }
+            info.push((l, size));
+        }
+    }
+    (id, info)
+}
+
+/// Merges regions smaller than `min_area` pixels into their most similar neighbouring
+/// unit. `distance(a, b)` compares units; `keep` labels are never merged nor merged into
+/// (unexplained pixels). Returns the region counts before and after.
+pub fn merge_small(
+    labels: &mut Array2<i16>,
+    min_area: usize,
+    keep: i16,
+    distance: impl Fn(i16, i16) -> f64,
+) -> (usize, usize) {
+    let (_, before) = regions(labels);
+    let before_count = before.len();
+    if min_area <= 1 {
+        return (before_count, before_count);
+    }
+    let (rows, cols) = labels.dim();
+    for _round in 0..16 {
+        let (ids, info) = regions(labels);
+        let mut order: Vec<usize> = (0..info.len())
+            .filter(|&i| info[i].1 < min_area && info[i].0 != keep)
+            .collect();
+        if order.is_empty() {
+            break;
+        }
+        order.sort_by_key(|&i| (info[i].1, i));
+        let mut changed = false;
+        for i in order {
+            let rid = i as u32 + 1;
+            let own = info[i].0;
+            // Neighbouring units of this region.
+            let mut neighbours: Vec<i16> = Vec::new();
+            for r in 0..rows {
+                for c in 0..cols {
+                    if ids[(r, c)] != rid {
+                        continue;
+                    }
+                    for dy in -1i64..=1 {
+                        for dx in -1i64..=1 {
+                            let (ny, nx) = (r as i64 + dy, c as i64 + dx);
+                            if ny < 0 || nx < 0 || ny >= rows as i64 || nx >= cols as i64 {
+                                continue;
+                            }
+                            let l = labels[(ny as usize, nx as usize)];
+                            if l != 0 && l != own && l != keep && !neighbours.contains(&l) {
+                                neighbours.push(l);
+                            }
+                        }
+                    }
+                }
+            }
+            let Some(&target) = neighbours.iter().min_by(|a, b| {
+                distance(own, **a)
+                    .total_cmp(&distance(own, **b))
+                    .then(a.cmp(b))
+            }) else {
+                continue;
+            };
+            for (l, rid_here) in labels.iter_mut().zip(ids.iter()) {
+                if *rid_here == rid {
+                    *l = target;
+                }
+            }
+            changed = true;
+        }
+        if !changed {
+            break;
+        }
+    }
+    let (_, after) = regions(labels);
+    (before_count, after.len())
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn diagonal_neighbours_connect() {
+        let l = Array2::from_shape_vec((3, 3), vec![1, 0, 0, 0, 1, 0, 0, 0, 2]).unwrap();
+        let (_, info) = regions(&l);
+        assert_eq!(info, vec![(1, 2), (2, 1)]);
+    }
+
+    #[test]
+    fn specks_merge_into_the_most_similar_neighbour() {
+        // A 1-pixel speck of unit 3 inside unit 1, touching unit 2: 3 is closer to 2.
+        let mut l =
+            Array2::from_shape_vec((3, 4), vec![1, 1, 2, 2, 1, 3, 2, 2, 1, 1, 2, 2]).unwrap();
+        let dist = |a: i16, b: i16| ((a - b) as f64).abs();
+        let (before, after) = merge_small(&mut l, 2, 9, dist);
+        assert_eq!((before, after), (3, 2));
+        assert_eq!(l[(1, 1)], 2);
+    }
+
+    #[test]
+    fn kept_labels_are_never_merged() {
+        let mut l = Array2::from_shape_vec((2, 3), vec![1, 9, 1, 1, 1, 1]).unwrap();
+        merge_small(&mut l, 3, 9, |a, b| ((a - b) as f64).abs());
+        assert_eq!(l[(0, 1)], 9);
+    }
+}
