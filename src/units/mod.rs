@@ -23,7 +23,7 @@ pub mod rules;
 
 use std::collections::BTreeMap;
 
-use ndarray::{Array2, Axis};
+use ndarray::Array2;
 
 use crate::library::Library;
 use crate::render::colour::{delta_e, srgb8_to_lab, ColourMatrix};
@@ -235,15 +235,30 @@ pub fn classify(
             pixels.push((r, c));
         }
     }
-    let features = Array2::from_shape_fn((pixels.len(), nf), |(i, f)| {
-        let (r, c) = pixels[i];
+    // Only the sample is gathered into a matrix; every pixel is then assigned from the
+    // abundance planes directly (no cube-sized feature copy).
+    let n = pixels.len();
+    let idx = cluster::sample_indices(n, p.sample.unwrap_or(n), p.seed);
+    let sample = Array2::from_shape_fn((idx.len(), nf), |(i, f)| {
+        let (r, c) = pixels[idx[i]];
         out.abundance[(r, c, materials[f])] as f64
     });
-    let n = features.nrows();
-    let idx = cluster::sample_indices(n, p.sample.unwrap_or(n), p.seed);
-    let sample = features.select(Axis(0), &idx);
     let fitted = cluster::fit(&sample, p.units, p.max_units, p.seed)?;
-    let assigned = cluster::assign(&fitted.centroids, features.view());
+    let assigned: Vec<usize> = {
+        use rayon::prelude::*;
+        pixels
+            .par_iter()
+            .map_init(
+                || vec![0.0; nf],
+                |x, &(r, c)| {
+                    for (f, &j) in materials.iter().enumerate() {
+                        x[f] = out.abundance[(r, c, j)] as f64;
+                    }
+                    cluster::nearest(&fitted.centroids, x)
+                },
+            )
+            .collect()
+    };
 
     // Units numbered by size, largest first, for stable and readable legends.
     let k = fitted.centroids.nrows();

@@ -70,26 +70,27 @@ pub fn merge_small(
         }
         order.sort_by_key(|&i| (info[i].1, i));
         let mut changed = false;
+        // Each region's pixels, gathered once per round.
+        let mut members: Vec<Vec<(usize, usize)>> = vec![Vec::new(); info.len()];
+        for ((r, c), rid) in ids.indexed_iter() {
+            if *rid != 0 && info[*rid as usize - 1].1 < min_area {
+                members[*rid as usize - 1].push((r, c));
+            }
+        }
         for i in order {
-            let rid = i as u32 + 1;
             let own = info[i].0;
-            // Neighbouring units of this region.
+            // Neighbouring units of this region (as they stand after earlier merges).
             let mut neighbours: Vec<i16> = Vec::new();
-            for r in 0..rows {
-                for c in 0..cols {
-                    if ids[(r, c)] != rid {
-                        continue;
-                    }
-                    for dy in -1i64..=1 {
-                        for dx in -1i64..=1 {
-                            let (ny, nx) = (r as i64 + dy, c as i64 + dx);
-                            if ny < 0 || nx < 0 || ny >= rows as i64 || nx >= cols as i64 {
-                                continue;
-                            }
-                            let l = labels[(ny as usize, nx as usize)];
-                            if l != 0 && l != own && l != keep && !neighbours.contains(&l) {
-                                neighbours.push(l);
-                            }
+            for &(r, c) in &members[i] {
+                for dy in -1i64..=1 {
+                    for dx in -1i64..=1 {
+                        let (ny, nx) = (r as i64 + dy, c as i64 + dx);
+                        if ny < 0 || nx < 0 || ny >= rows as i64 || nx >= cols as i64 {
+                            continue;
+                        }
+                        let l = labels[(ny as usize, nx as usize)];
+                        if l != 0 && l != own && l != keep && !neighbours.contains(&l) {
+                            neighbours.push(l);
                         }
                     }
                 }
@@ -101,10 +102,8 @@ pub fn merge_small(
             }) else {
                 continue;
             };
-            for (l, rid_here) in labels.iter_mut().zip(ids.iter()) {
-                if *rid_here == rid {
-                    *l = target;
-                }
+            for &(r, c) in &members[i] {
+                labels[(r, c)] = target;
             }
             changed = true;
         }

@@ -1,0 +1,25 @@
+#!/usr/bin/env bash
+# Whole-tool run of `thiomap map` on a 1024 x 1024 x 32 synthetic tile: wall time per stage
+# (timings.json) and peak memory (GNU time), with the cube's and the outputs' sizes beside
+# them for the memory target (peak <= cube f32 + outputs + 128 MiB).
+# Usage: benches/map_big_tile.sh   (from the repository root; needs /usr/bin/time)
+set -euo pipefail
+cargo build --release --quiet
+T=target/release/thiomap
+mkdir -p bench-data
+$T demo --overwrite --out bench-data/big-tile.fits --kind tile --size 1024 --bands mapper-96 \
+  --range 0.4-0.87 --snr 150 --seed 5 2>/dev/null
+rm -rf bench-data/big-tile-map
+/usr/bin/time -v $T map bench-data/big-tile.fits --out bench-data/big-tile-map 2>bench-data/time.txt
+grep -E "Elapsed|Maximum resident" bench-data/time.txt
+python3 - <<'PY'
+import json, os
+t = json.load(open("bench-data/big-tile-map/timings.json"))
+for s in t["stages"]:
+    print(f"  stage {s['stage']:6s} {s['seconds']:7.2f} s")
+print(f"  total  {t['total_seconds']:7.2f} s, threads {t['threads']}")
+out = sum(os.path.getsize(os.path.join(d, f)) for d, _, fs in os.walk("bench-data/big-tile-map") for f in fs)
+cube = 1024 * 1024 * 32 * 4
+print(f"  cube f32 {cube / 2**20:.0f} MiB, outputs {out / 2**20:.0f} MiB, "
+      f"peak target {(cube + out) / 2**20 + 128:.0f} MiB")
+PY
