@@ -404,7 +404,7 @@ pub fn units_summary(map: &crate::units::UnitMap) -> serde_json::Value {
         ),
         "regions_before_min_area": map.regions_before,
         "regions_after_min_area": map.regions_after,
-        "silhouette": map.silhouette.iter().map(|(k, s)| serde_json::json!({"units": k, "score": s})).collect::<Vec<_>>(),
+        "unit_count_scores": map.scores.iter().map(|(k, s)| serde_json::json!({"units": k, "score": s})).collect::<Vec<_>>(),
         "area_weighting": if map.area_weighted { "surface area: 1/cos(emission), emission capped at 80°" } else { "pixels" },
     })
 }

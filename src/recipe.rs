@@ -23,6 +23,9 @@
 //! min_area = 4              # pixels
 //! rules = "embedded"        # or a rules file
 //! seed = 1
+//! method = "kmeans"         # kmeans, gmm (Gaussian mixture) or dbscan
+//! eps = 0.05                # dbscan: neighbourhood radius (abundance)
+//! min_points = 10           # dbscan: points of a core neighbourhood
 //! ```
 //! Every key is optional; unknown keys are errors.
 
@@ -64,6 +67,12 @@ pub struct Recipe {
     pub rules: String,
     /// `map` only: the seed of the clustering sample and initialisation.
     pub seed: u64,
+    /// `map` only: "kmeans", "gmm" or "dbscan".
+    pub method: String,
+    /// `map` only, DBSCAN: neighbourhood radius in abundance units.
+    pub eps: f64,
+    /// `map` only, DBSCAN: the minimum points of a core neighbourhood.
+    pub min_points: usize,
 }
 
 /// A count, or a word ("auto", "all") that stands for the default choice.
@@ -110,6 +119,9 @@ impl Default for Recipe {
             min_area: UnitParams::default().min_area,
             rules: "embedded".into(),
             seed: 1,
+            method: "kmeans".into(),
+            eps: 0.05,
+            min_points: 10,
         }
     }
 }
@@ -157,12 +169,31 @@ impl Recipe {
 
     /// The checked units parameters (for `map`).
     pub fn unit_params(&self) -> Result<UnitParams, String> {
+        use crate::units::cluster::Method;
+        let method = match self.method.as_str() {
+            "kmeans" => Method::KMeans,
+            "gmm" => Method::GaussianMixture,
+            "dbscan" => {
+                if !(self.eps.is_finite() && self.eps > 0.0) || self.min_points < 2 {
+                    return Err(format!(
+                        "dbscan needs eps > 0 and min_points ≥ 2 (got {} and {})",
+                        self.eps, self.min_points
+                    ));
+                }
+                Method::Dbscan {
+                    eps: self.eps,
+                    min_points: self.min_points,
+                }
+            }
+            other => return Err(format!("method `{other}`: expected kmeans, gmm or dbscan")),
+        };
         let p = UnitParams {
             units: self.units.number_or("auto", "units")?,
             max_units: self.max_units,
             sample: self.sample.number_or("all", "sample")?,
             min_area: self.min_area,
             seed: self.seed,
+            method,
         };
         p.check().map_err(|e| e.to_string())?;
         if self.max_units < 2 {

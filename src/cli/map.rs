@@ -42,6 +42,17 @@ pub struct Args {
     /// Seed of the clustering sample and initialisation. Default 1.
     #[arg(long, value_name = "N")]
     seed: Option<u64>,
+    /// Clustering: kmeans (default; K by silhouette), gmm (Gaussian mixture; K by BIC) or
+    /// dbscan (finds its own number of units; see --eps and --min-points).
+    #[arg(long, value_name = "METHOD", value_parser = ["kmeans", "gmm", "dbscan"])]
+    method: Option<String>,
+    /// DBSCAN neighbourhood radius, in abundance units (distance between abundance
+    /// vectors). Default 0.05.
+    #[arg(long, value_name = "EPS")]
+    eps: Option<f64>,
+    /// DBSCAN: points within --eps that make a core point. Default 10.
+    #[arg(long, value_name = "N")]
+    min_points: Option<usize>,
 }
 
 fn count(s: &str) -> Count {
@@ -70,6 +81,15 @@ impl Args {
         }
         if let Some(s) = self.seed {
             r.seed = s;
+        }
+        if let Some(m) = &self.method {
+            r.method = m.clone();
+        }
+        if let Some(e) = self.eps {
+            r.eps = e;
+        }
+        if let Some(n) = self.min_points {
+            r.min_points = n;
         }
         r.unit_params().map_err(anyhow::Error::msg)?;
         r.load_rules().map_err(anyhow::Error::msg)?;

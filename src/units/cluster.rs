@@ -6,6 +6,13 @@
 //! silhouette (Rousseeuw 1987, J. Comput. Appl. Math. 20:53) on at most
 //! [`SILHOUETTE_POINTS`] sampled pixels: the silhouette costs grow with the square of the
 //! points, so it is never computed on the whole cube.
+//!
+//! Two other methods, also through linfa-clustering: a **Gaussian mixture** (full
+//! covariances, regularised by [`GMM_REG_COVARIANCE`] so a pure-pixel unit with almost no
+//! variance does not collapse; K chosen by the lowest BIC = −2 ln L + p ln n, Schwarz 1978;
+//! pixels assigned to the component of highest posterior), and **DBSCAN** (Ester et al.
+//! 1996; on the sample, which sets the number of units itself; every pixel then joins the
+//! nearest cluster mean).
 
 use linfa::prelude::*;
 use linfa_clustering::KMeans;
@@ -29,14 +36,172 @@ pub enum ClusterError {
     NoPoints,
     #[error("k-means failed: {0}")]
     KMeans(String),
+    #[error(
+        "the Gaussian mixture failed ({0}); units with almost no variance collapse it: use \
+         fewer units (--units), or k-means (--method kmeans)"
+    )]
+    Mixture(String),
+    #[error("DBSCAN failed: {0}")]
+    Dbscan(String),
 }
 
-/// A fitted clustering: centroids (K × features) and the chosen K's silhouette.
+/// A fitted clustering: centroids (K × features) and the chosen K's scores.
 #[derive(Debug, Clone)]
 pub struct Clustering {
     pub centroids: Array2<f64>,
-    /// Mean silhouette per K tried (K, score), when K was chosen automatically.
+    /// Score per K tried (K, score), when K was chosen automatically: mean silhouette for
+    /// k-means (higher is better), BIC for the mixture (lower is better).
     pub scores: Vec<(usize, f64)>,
+    /// The mixture's components, for assignment by posterior.
+    pub mixture: Option<Mixture>,
+}
+
+impl Clustering {
+    /// The unit of one feature vector: nearest centroid, or highest posterior.
+    pub fn unit_of(&self, x: &[f64]) -> usize {
+        match &self.mixture {
+            Some(m) => m.most_likely(x),
+            None => nearest(&self.centroids, x),
+        }
+    }
+}
+
+/// The clustering method.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub enum Method {
+    KMeans,
+    GaussianMixture,
+    /// DBSCAN with neighbourhood radius `eps` (abundance units) and `min_points`.
+    Dbscan {
+        eps: f64,
+        min_points: usize,
+    },
+}
+
+/// Covariance regularisation of the mixture (added to the diagonal).
+pub const GMM_REG_COVARIANCE: f64 = 1e-4;
+
+/// Gaussian components: log weights, means, and the Cholesky factors of the covariances.
+#[derive(Debug, Clone)]
+pub struct Mixture {
+    log_weights: Vec<f64>,
+    means: Array2<f64>,
+    /// Lower-triangular L with LLᵀ = Σ, per component.
+    chol: Vec<nalgebra::DMatrix<f64>>,
+    /// ln det Σ per component.
+    log_det: Vec<f64>,
+}
+
+impl Mixture {
+    fn new(
+        weights: &Array1<f64>,
+        means: &Array2<f64>,
+        cov: &ndarray::Array3<f64>,
+    ) -> Option<Mixture> {
+        let d = means.ncols();
+        let mut chol = Vec::new();
+        let mut log_det = Vec::new();
+        for k in 0..means.nrows() {
+            let m = nalgebra::DMatrix::from_fn(d, d, |i, j| cov[(k, i, j)]);
+            let c = nalgebra::Cholesky::new(m)?;
+            log_det.push(2.0 * c.l().diagonal().iter().map(|v| v.ln()).sum::<f64>());
+            chol.push(c.l());
+        }
+        Some(Mixture {
+            log_weights: weights.iter().map(|w| w.ln()).collect(),
+            means: means.clone(),
+            chol,
+            log_det,
+        })
+    }
+
+    /// ln(w_k N(x | μ_k, Σ_k)) per component.
+    fn log_joint(&self, x: &[f64], k: usize) -> f64 {
+        let d = x.len();
+        let diff = nalgebra::DVector::from_fn(d, |i, _| x[i] - self.means[(k, i)]);
+        let z = self.chol[k]
+            .solve_lower_triangular(&diff)
+            .expect("Cholesky factors are regular");
+        self.log_weights[k]
+            - 0.5
+                * (z.norm_squared()
+                    + self.log_det[k]
+                    + d as f64 * (2.0 * std::f64::consts::PI).ln())
+    }
+
+    fn most_likely(&self, x: &[f64]) -> usize {
+        (0..self.means.nrows())
+            .map(|k| (k, self.log_joint(x, k)))
+            .max_by(|a, b| a.1.total_cmp(&b.1))
+            .map(|(k, _)| k)
+            .unwrap_or(0)
+    }
+
+    /// ln L of the points.
+    fn log_likelihood(&self, points: &Array2<f64>) -> f64 {
+        points
+            .outer_iter()
+            .map(|row| {
+                let x = row.to_vec();
+                let l: Vec<f64> = (0..self.means.nrows())
+                    .map(|k| self.log_joint(&x, k))
+                    .collect();
+                let max = l.iter().cloned().fold(f64::NEG_INFINITY, f64::max);
+                max + l.iter().map(|v| (v - max).exp()).sum::<f64>().ln()
+            })
+            .sum()
+    }
+}
+
+fn fit_mixture(points: &Array2<f64>, k: usize, seed: u64) -> Result<(Mixture, f64), ClusterError> {
+    use linfa_clustering::GaussianMixtureModel;
+    let data = DatasetBase::from(points.clone());
+    let gmm = GaussianMixtureModel::params_with_rng(k, ChaCha8Rng::seed_from_u64(seed))
+        .n_runs(2)
+        .reg_covariance(GMM_REG_COVARIANCE)
+        .tolerance(1e-4)
+        .max_n_iterations(200)
+        .fit(&data)
+        .map_err(|e| ClusterError::Mixture(e.to_string()))?;
+    let mix = Mixture::new(gmm.weights(), gmm.means(), gmm.covariances()).ok_or_else(|| {
+        ClusterError::Mixture("a fitted covariance is not positive definite".into())
+    })?;
+    let (n, d) = points.dim();
+    let p = (k - 1) + k * d + k * d * (d + 1) / 2;
+    let bic = -2.0 * mix.log_likelihood(points) + p as f64 * (n as f64).ln();
+    Ok((mix, bic))
+}
+
+fn fit_dbscan(
+    points: &Array2<f64>,
+    eps: f64,
+    min_points: usize,
+) -> Result<Array2<f64>, ClusterError> {
+    use linfa_clustering::Dbscan;
+    let labels = Dbscan::params(min_points)
+        .tolerance(eps)
+        .transform(points)
+        .map_err(|e| ClusterError::Dbscan(e.to_string()))?;
+    let k = labels.iter().flatten().max().map_or(0, |m| m + 1);
+    if k == 0 {
+        return Err(ClusterError::Dbscan(format!(
+            "every sampled pixel is noise at eps {eps} with min points {min_points}: raise --eps"
+        )));
+    }
+    let d = points.ncols();
+    let mut sums = Array2::<f64>::zeros((k, d));
+    let mut counts = vec![0usize; k];
+    for (row, l) in points.outer_iter().zip(labels.iter()) {
+        if let Some(l) = l {
+            counts[*l] += 1;
+            let mut s = sums.row_mut(*l);
+            s += &row;
+        }
+    }
+    for (mut s, n) in sums.outer_iter_mut().zip(&counts) {
+        s /= *n as f64;
+    }
+    Ok(sums)
 }
 
 /// Row indices of a seeded sample of `n` points (all of them when `n ≥ total`), in order.
@@ -125,9 +290,11 @@ pub fn silhouette(points: ArrayView2<f64>, labels: &[usize], k: usize) -> f64 {
     scores.iter().sum::<f64>() / n.max(1) as f64
 }
 
-/// Fits k-means on `sample` with `k` units, or chooses K in 2…`max_k` by silhouette.
+/// Fits `method` on `sample` with `k` units, or chooses K in 2…`max_k` (k-means by
+/// silhouette, the mixture by BIC; DBSCAN finds its own number).
 pub fn fit(
     sample: &Array2<f64>,
+    method: Method,
     k: Option<usize>,
     max_k: usize,
     seed: u64,
@@ -136,14 +303,31 @@ pub fn fit(
     if n == 0 {
         return Err(ClusterError::NoPoints);
     }
+    if let Method::Dbscan { eps, min_points } = method {
+        return Ok(Clustering {
+            centroids: fit_dbscan(sample, eps, min_points)?,
+            scores: Vec::new(),
+            mixture: None,
+        });
+    }
     if let Some(k) = k {
         if k > n {
             return Err(ClusterError::TooManyUnits { k, points: n });
         }
-        let (centroids, _) = fit_k(sample, k, seed)?;
-        return Ok(Clustering {
-            centroids,
-            scores: Vec::new(),
+        return Ok(match method {
+            Method::GaussianMixture => {
+                let (mix, _) = fit_mixture(sample, k, seed)?;
+                Clustering {
+                    centroids: mix.means.clone(),
+                    scores: Vec::new(),
+                    mixture: Some(mix),
+                }
+            }
+            _ => Clustering {
+                centroids: fit_k(sample, k, seed)?.0,
+                scores: Vec::new(),
+                mixture: None,
+            },
         });
     }
     // Distinct points bound the useful K: identical pixels make one unit.
@@ -160,12 +344,29 @@ pub fn fit(
         return Ok(Clustering {
             centroids: sample.slice(ndarray::s![0..1, ..]).to_owned(),
             scores: Vec::new(),
+            mixture: None,
+        });
+    }
+    let mut scores = Vec::new();
+    if method == Method::GaussianMixture {
+        let mut best: Option<(f64, Mixture)> = None;
+        for k in 2..=max_k.min(distinct) {
+            let (mix, bic) = fit_mixture(sample, k, seed)?;
+            scores.push((k, bic));
+            if best.as_ref().is_none_or(|(b, _)| bic < *b) {
+                best = Some((bic, mix));
+            }
+        }
+        let (_, mix) = best.expect("at least K = 2 was tried");
+        return Ok(Clustering {
+            centroids: mix.means.clone(),
+            scores,
+            mixture: Some(mix),
         });
     }
     let sil_idx = sample_indices(n, SILHOUETTE_POINTS, seed ^ 0x5117);
     let sil_points = sample.select(Axis(0), &sil_idx);
     let mut best: Option<(f64, Array2<f64>)> = None;
-    let mut scores = Vec::new();
     for k in 2..=max_k.min(distinct) {
         let (centroids, _) = fit_k(sample, k, seed)?;
         let labels = assign(&centroids, sil_points.view());
@@ -176,7 +377,11 @@ pub fn fit(
         }
     }
     let (_, centroids) = best.expect("at least K = 2 was tried");
-    Ok(Clustering { centroids, scores })
+    Ok(Clustering {
+        centroids,
+        scores,
+        mixture: None,
+    })
 }
 
 /// Adjusted Rand index of two labellings (Hubert & Arabie 1985, J. Classification 2:193).
@@ -225,7 +430,7 @@ mod tests {
             }
         }
         let a = Array2::from_shape_fn((60, 2), |(i, j)| pts[i][j]);
-        let c = fit(&a, None, 6, 1).unwrap();
+        let c = fit(&a, Method::KMeans, None, 6, 1).unwrap();
         assert_eq!(c.centroids.nrows(), 3, "{:?}", c.scores);
     }
 
@@ -233,14 +438,57 @@ mod tests {
     fn more_units_than_points_is_refused() {
         let a = Array2::from_shape_fn((3, 2), |(i, j)| (i + j) as f64);
         assert!(matches!(
-            fit(&a, Some(5), 8, 1),
+            fit(&a, Method::KMeans, Some(5), 8, 1),
             Err(ClusterError::TooManyUnits { .. })
         ));
     }
 
     #[test]
+    fn the_mixture_and_dbscan_find_well_separated_groups() {
+        let mut pts = Vec::new();
+        for (g, (cx, cy)) in [(0.0, 0.0), (1.0, 0.0), (0.0, 1.0)].iter().enumerate() {
+            for i in 0..40 {
+                let t = i as f64 * 0.37 + g as f64;
+                pts.push([cx + 0.02 * t.sin(), cy + 0.02 * (1.3 * t).cos()]);
+            }
+        }
+        let a = Array2::from_shape_fn((120, 2), |(i, j)| pts[i][j]);
+        let g = fit(&a, Method::GaussianMixture, None, 5, 1).unwrap();
+        assert_eq!(g.centroids.nrows(), 3, "BIC per K: {:?}", g.scores);
+        let d = fit(
+            &a,
+            Method::Dbscan {
+                eps: 0.1,
+                min_points: 4,
+            },
+            None,
+            5,
+            1,
+        )
+        .unwrap();
+        assert_eq!(d.centroids.nrows(), 3);
+        // Every point joins its own group's unit under both.
+        for c in [&g, &d] {
+            let units: Vec<usize> = (0..120)
+                .map(|i| c.unit_of(&[a[(i, 0)], a[(i, 1)]]))
+                .collect();
+            for grp in 0..3 {
+                assert!(units[grp * 40..(grp + 1) * 40]
+                    .iter()
+                    .all(|u| *u == units[grp * 40]));
+            }
+        }
+    }
+
+    #[test]
     fn identical_points_make_one_unit() {
         let a = Array2::from_elem((10, 3), 0.25);
-        assert_eq!(fit(&a, None, 8, 1).unwrap().centroids.nrows(), 1);
+        assert_eq!(
+            fit(&a, Method::KMeans, None, 8, 1)
+                .unwrap()
+                .centroids
+                .nrows(),
+            1
+        );
     }
 }

@@ -2,6 +2,7 @@
 //! cannot explain set apart, specks below a minimum mapping unit merged away, each unit
 //! named by rules and coloured like its material.
 //!
+//! - **Clustering**: see [`cluster`] (k-means by default; Gaussian mixture; DBSCAN).
 //! - **Features**: each unmixed pixel's abundance vector, shade removed and renormalised
 //!   (the planes `unmix` reports), unscaled: abundances share one unit (fraction of the
 //!   pixel), so Euclidean distance weighs every member alike.
@@ -53,6 +54,7 @@ pub struct UnitParams {
     /// Regions smaller than this many pixels are merged away (1 = keep all).
     pub min_area: usize,
     pub seed: u64,
+    pub method: cluster::Method,
 }
 
 impl Default for UnitParams {
@@ -63,6 +65,7 @@ impl Default for UnitParams {
             sample: Some(DEFAULT_SAMPLE),
             min_area: 4,
             seed: 1,
+            method: cluster::Method::KMeans,
         }
     }
 }
@@ -127,8 +130,8 @@ pub struct UnitMap {
     pub noise_level: f64,
     pub regions_before: usize,
     pub regions_after: usize,
-    /// Silhouette per K tried, when K was chosen.
-    pub silhouette: Vec<(usize, f64)>,
+    /// Score per K tried, when K was chosen (silhouette for k-means, BIC for the mixture).
+    pub scores: Vec<(usize, f64)>,
     pub area_weighted: bool,
     /// Area fraction per class id.
     pub classes: BTreeMap<String, f64>,
@@ -243,7 +246,7 @@ pub fn classify(
         let (r, c) = pixels[idx[i]];
         out.abundance[(r, c, materials[f])] as f64
     });
-    let fitted = cluster::fit(&sample, p.units, p.max_units, p.seed)?;
+    let fitted = cluster::fit(&sample, p.method, p.units, p.max_units, p.seed)?;
     let assigned: Vec<usize> = {
         use rayon::prelude::*;
         pixels
@@ -254,7 +257,7 @@ pub fn classify(
                     for (f, &j) in materials.iter().enumerate() {
                         x[f] = out.abundance[(r, c, j)] as f64;
                     }
-                    cluster::nearest(&fitted.centroids, x)
+                    fitted.unit_of(x)
                 },
             )
             .collect()
@@ -378,7 +381,7 @@ pub fn classify(
         noise_level,
         regions_before,
         regions_after,
-        silhouette: fitted.scores,
+        scores: fitted.scores,
         area_weighted: emission_deg.is_some(),
         classes,
     })

@@ -2,7 +2,7 @@
 
 use thiomap::cube::{Backplane, OpenOptions};
 use thiomap::library::Library;
-use thiomap::units::cluster::{adjusted_rand_index, assign, fit};
+use thiomap::units::cluster::{adjusted_rand_index, assign, fit, Method};
 use thiomap::units::{classify, MaterialSpectra, Rules, UnitParams};
 use thiomap::unmix::{Model, RunOptions, UnmixParams};
 
@@ -13,7 +13,7 @@ fn k_means_on_iris_finds_the_classic_three_clusters() {
     // sample 1 has centroid ≈ (5.006, 3.418, 1.464, 0.244), the setosa species exactly.
     let iris = linfa_datasets::iris();
     let x = iris.records().to_owned();
-    let c = fit(&x, Some(3), 3, 7).unwrap();
+    let c = fit(&x, Method::KMeans, Some(3), 3, 7).unwrap();
     let labels = assign(&c.centroids, x.view());
     let first = c.centroids.row(labels[0]);
     for (got, want) in first.iter().zip([5.006, 3.418, 1.464, 0.244]) {
