@@ -26,6 +26,8 @@
 //! method = "kmeans"         # kmeans, gmm (Gaussian mixture) or dbscan
 //! eps = 0.05                # dbscan: neighbourhood radius (abundance)
 //! min_points = 10           # dbscan: points of a core neighbourhood
+//! albedo_feature = false    # cluster on 1 − shade as well
+//! rmse_feature = false      # cluster on the scaled fit RMSE as well
 //! ```
 //! Every key is optional; unknown keys are errors.
 
@@ -73,6 +75,10 @@ pub struct Recipe {
     pub eps: f64,
     /// `map` only, DBSCAN: the minimum points of a core neighbourhood.
     pub min_points: usize,
+    /// `map` only: add the albedo (1 − shade) to the clustering features.
+    pub albedo_feature: bool,
+    /// `map` only: add the scaled fit RMSE to the clustering features.
+    pub rmse_feature: bool,
 }
 
 /// A count, or a word ("auto", "all") that stands for the default choice.
@@ -122,6 +128,8 @@ impl Default for Recipe {
             method: "kmeans".into(),
             eps: 0.05,
             min_points: 10,
+            albedo_feature: false,
+            rmse_feature: false,
         }
     }
 }
@@ -194,6 +202,8 @@ impl Recipe {
             min_area: self.min_area,
             seed: self.seed,
             method,
+            albedo: self.albedo_feature,
+            rmse: self.rmse_feature,
         };
         p.check().map_err(|e| e.to_string())?;
         if self.max_units < 2 {

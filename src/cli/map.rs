@@ -53,6 +53,12 @@ pub struct Args {
     /// DBSCAN: points within --eps that make a core point. Default 10.
     #[arg(long, value_name = "N")]
     min_points: Option<usize>,
+    /// Cluster on the albedo (1 − shade fraction, 0–1) as well as the abundances.
+    #[arg(long)]
+    with_albedo: bool,
+    /// Cluster on the fit RMSE (divided by the unexplained threshold, 0–1) as well.
+    #[arg(long)]
+    with_rmse: bool,
 }
 
 fn count(s: &str) -> Count {
@@ -90,6 +96,12 @@ impl Args {
         }
         if let Some(n) = self.min_points {
             r.min_points = n;
+        }
+        if self.with_albedo {
+            r.albedo_feature = true;
+        }
+        if self.with_rmse {
+            r.rmse_feature = true;
         }
         r.unit_params().map_err(anyhow::Error::msg)?;
         r.load_rules().map_err(anyhow::Error::msg)?;

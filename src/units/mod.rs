@@ -5,7 +5,9 @@
 //! - **Clustering**: see [`cluster`] (k-means by default; Gaussian mixture; DBSCAN).
 //! - **Features**: each unmixed pixel's abundance vector, shade removed and renormalised
 //!   (the planes `unmix` reports), unscaled: abundances share one unit (fraction of the
-//!   pixel), so Euclidean distance weighs every member alike.
+//!   pixel), so Euclidean distance weighs every member alike. Optionally the albedo,
+//!   1 − shade fraction (0–1), and the fit RMSE divided by the unexplained threshold (0–1
+//!   for the pixels clustered) join them, unweighted, on the same 0–1 footing.
 //! - **Unexplained**: a pixel whose fit RMSE exceeds [`UNEXPLAINED_FACTOR`] times the
 //!   noise level of the cube (the median fit RMSE of unmixed pixels, a robust estimate of
 //!   the noise when most pixels fit) joins the class `unexplained` instead of a unit.
@@ -55,6 +57,10 @@ pub struct UnitParams {
     pub min_area: usize,
     pub seed: u64,
     pub method: cluster::Method,
+    /// Add the albedo (1 − shade fraction, 0–1) to the features.
+    pub albedo: bool,
+    /// Add the fit RMSE, divided by the unexplained threshold (0–1 for explained pixels).
+    pub rmse: bool,
 }
 
 impl Default for UnitParams {
@@ -66,6 +72,8 @@ impl Default for UnitParams {
             min_area: 4,
             seed: 1,
             method: cluster::Method::KMeans,
+            albedo: false,
+            rmse: false,
         }
     }
 }
@@ -242,21 +250,37 @@ pub fn classify(
     // abundance planes directly (no cube-sized feature copy).
     let n = pixels.len();
     let idx = cluster::sample_indices(n, p.sample.unwrap_or(n), p.seed);
-    let sample = Array2::from_shape_fn((idx.len(), nf), |(i, f)| {
+    let shade = out.ids.iter().position(|i| i == "shade");
+    let extra = p.albedo as usize + p.rmse as usize;
+    let nx = nf + extra;
+    // The feature vector of a pixel: abundances, then the optional albedo and RMSE.
+    let feature = |r: usize, c: usize, x: &mut [f64]| {
+        for (f, &j) in materials.iter().enumerate() {
+            x[f] = out.abundance[(r, c, j)] as f64;
+        }
+        let mut k = nf;
+        if p.albedo {
+            x[k] = shade.map_or(1.0, |s| 1.0 - out.abundance[(r, c, s)] as f64);
+            k += 1;
+        }
+        if p.rmse {
+            x[k] = out.rmse[(r, c)] as f64 / threshold;
+        }
+    };
+    let mut sample = Array2::<f64>::zeros((idx.len(), nx));
+    for (i, mut row) in sample.outer_iter_mut().enumerate() {
         let (r, c) = pixels[idx[i]];
-        out.abundance[(r, c, materials[f])] as f64
-    });
+        feature(r, c, row.as_slice_mut().expect("rows are contiguous"));
+    }
     let fitted = cluster::fit(&sample, p.method, p.units, p.max_units, p.seed)?;
     let assigned: Vec<usize> = {
         use rayon::prelude::*;
         pixels
             .par_iter()
             .map_init(
-                || vec![0.0; nf],
+                || vec![0.0; nx],
                 |x, &(r, c)| {
-                    for (f, &j) in materials.iter().enumerate() {
-                        x[f] = out.abundance[(r, c, j)] as f64;
-                    }
+                    feature(r, c, x);
                     fitted.unit_of(x)
                 },
             )

@@ -158,3 +158,27 @@ fn a_bad_rules_file_is_refused_before_any_work() {
     );
     assert!(!out.exists(), "nothing may be written");
 }
+
+#[test]
+fn optional_features_and_methods_are_recorded_in_the_recipe() {
+    let dir = tempfile::tempdir().unwrap();
+    let out = dir.path().join("r");
+    let run = map(
+        &demo_cube("brimveil-tile-spectrometer24.fits"),
+        &out,
+        &["--with-albedo", "--method", "gmm", "--units", "4"],
+    );
+    assert!(run.status.success(), "{}", stderr(&run));
+    let record: serde_json::Value =
+        serde_json::from_slice(&std::fs::read(out.join("run.json")).unwrap()).unwrap();
+    assert_eq!(record["recipe"]["albedo_feature"], true);
+    assert_eq!(record["recipe"]["method"], "gmm");
+    assert_eq!(record["recipe"]["units"], 4);
+    let run = map(
+        &demo_cube("brimveil-tile-spectrometer24.fits"),
+        &dir.path().join("x"),
+        &["--method", "dbscan", "--eps", "0"],
+    );
+    assert_eq!(run.status.code(), Some(2));
+    assert!(stderr(&run).contains("eps > 0"), "{}", stderr(&run));
+}
