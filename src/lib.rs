@@ -7,6 +7,7 @@
 //! [`render`] turns spectra into colours and plots, and [`output`] writes result files
 //! atomically. See DEVELOPERS.md for the data flow.
 
+pub mod batch;
 pub mod cube;
 pub mod demo;
 pub mod fits;

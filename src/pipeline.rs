@@ -552,3 +552,70 @@ pub fn write_unit_products(
         crate::render::units::spectra_svg(&panels).map_err(|e| fail("units-spectra.svg", e))?;
     crate::output::atomic::write_bytes(&dir.join("units-spectra.svg"), svg.as_bytes())
 }
+
+/// An error of one stage of the main job.
+#[derive(Debug)]
+pub struct StageError {
+    pub stage: &'static str,
+    pub error: anyhow::Error,
+}
+
+impl std::fmt::Display for StageError {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        write!(f, "{:#}", self.error)
+    }
+}
+
+impl std::error::Error for StageError {}
+
+fn at<T, E: Into<anyhow::Error>>(stage: &'static str, r: Result<T, E>) -> Result<T, StageError> {
+    r.map_err(|e| StageError {
+        stage,
+        error: e.into(),
+    })
+}
+
+/// The main job for one cube: read, unmix, map units, write the whole results folder into
+/// `out` (which the caller has prepared), `run.json` last.
+pub fn map_cube(
+    cube: &Path,
+    hdu: Option<String>,
+    out: &Path,
+    recipe: &Recipe,
+    threads: usize,
+    progress: &dyn Progress,
+) -> Result<crate::units::UnitMap, StageError> {
+    let mut timings = Timings::default();
+    let prepared = at("read", prepare(cube, hdu, recipe, &mut timings))?;
+    for w in &prepared.warnings {
+        progress.warn(w);
+    }
+    let unmixed = timings.time("unmix", || run_unmix(&prepared, recipe, progress));
+    let (map, _) = at(
+        "units",
+        timings.time("units", || run_units(&prepared, &unmixed, recipe, progress)),
+    )?;
+    at(
+        "write",
+        timings.time("write", || -> Result<(), crate::output::OutputError> {
+            write_unmix_products(out, &prepared, &unmixed)?;
+            write_unit_products(out, &prepared, &unmixed, &map)
+        }),
+    )?;
+    let mut summary = at(
+        "write",
+        serde_json::to_value(unmix_summary(&prepared, &unmixed, &prepared.warnings)),
+    )?;
+    if let (Some(s), serde_json::Value::Object(u)) = (summary.as_object_mut(), units_summary(&map))
+    {
+        s.extend(u);
+    }
+    at(
+        "write",
+        results::write_json(&out.join("summary.json"), &summary),
+    )?;
+    at("write", write_timings(out, &timings, threads))?;
+    let record = at("write", run_record("map", &prepared, recipe))?;
+    at("write", results::write_json(&out.join("run.json"), &record))?;
+    Ok(map)
+}

@@ -4,7 +4,7 @@
 use std::process::ExitCode;
 
 use thiomap::output::results;
-use thiomap::pipeline::{self, Progress, Timings};
+use thiomap::pipeline;
 use thiomap::recipe::{Count, Recipe};
 
 use super::progress::Bar;
@@ -115,32 +115,9 @@ pub fn run(args: Args) -> anyhow::Result<ExitCode> {
     let threads = a.threads.init()?;
     results::prepare(&a.out, a.overwrite)?;
     let bar = Bar::new();
-    let mut timings = Timings::default();
-    let prepared = pipeline::prepare(&a.cube, a.hdu.clone(), &recipe, &mut timings)?;
-    for w in &prepared.warnings {
-        bar.warn(w);
-    }
-    let out = timings.time("unmix", || pipeline::run_unmix(&prepared, &recipe, &bar));
-    let (map, _) = timings.time("units", || {
-        pipeline::run_units(&prepared, &out, &recipe, &bar)
-    })?;
+    let map = pipeline::map_cube(&a.cube, a.hdu.clone(), &a.out, &recipe, threads, &bar);
     bar.finish();
-    timings.time("write", || -> anyhow::Result<()> {
-        pipeline::write_unmix_products(&a.out, &prepared, &out)?;
-        pipeline::write_unit_products(&a.out, &prepared, &out, &map)?;
-        Ok(())
-    })?;
-    let mut summary =
-        serde_json::to_value(pipeline::unmix_summary(&prepared, &out, &prepared.warnings))?;
-    if let (Some(s), serde_json::Value::Object(u)) =
-        (summary.as_object_mut(), pipeline::units_summary(&map))
-    {
-        s.extend(u);
-    }
-    results::write_json(&a.out.join("summary.json"), &summary)?;
-    pipeline::write_timings(&a.out, &timings, threads)?;
-    let record = pipeline::run_record("map", &prepared, &recipe)?;
-    results::write_json(&a.out.join("run.json"), &record)?;
+    let map = map.map_err(|e| e.error)?;
     eprintln!("mapped {} units into {}:", map.units.len(), a.out.display());
     for u in &map.units {
         eprintln!(

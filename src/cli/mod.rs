@@ -1,6 +1,7 @@
 //! Command-line definitions: one file per command. The only place that knows clap and
 //! prints; each command turns its flags into library calls and formats the results.
 
+mod batch;
 mod common;
 mod convert;
 mod demo;
@@ -43,6 +44,8 @@ enum Command {
     Demo(demo::Args),
     Library(library::Args),
     Map(map::Args),
+    Batch(batch::Args),
+    Merge(batch::MergeArgs),
     Unmix(unmix::Args),
 }
 
@@ -55,6 +58,8 @@ pub fn run() -> anyhow::Result<ExitCode> {
         Command::Demo(args) => demo::run(args),
         Command::Library(args) => library::run(args),
         Command::Map(args) => map::run(args),
+        Command::Batch(args) => batch::run(args),
+        Command::Merge(args) => batch::merge(args),
         Command::Unmix(args) => unmix::run(args),
     }
 }

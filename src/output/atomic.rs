@@ -4,6 +4,9 @@
 //! a `.<name>.tmp-<pid>-<n>` file, never a truncated result under the real name.
 //!
 //! Files are not fsync'd: this protects against a killed process, not against power loss.
+//!
+//! Testing hook: with `THIOMAP_CRASH_AFTER_WRITES=N` in the environment, the process
+//! aborts right after its N-th completed file, so tests can kill a run at every point.
 
 use std::fs::{self, File};
 use std::io;
@@ -13,6 +16,20 @@ use std::sync::atomic::{AtomicU64, Ordering};
 use super::OutputError;
 
 static COUNTER: AtomicU64 = AtomicU64::new(0);
+static WRITTEN: AtomicU64 = AtomicU64::new(0);
+
+/// Aborts the process after the N-th completed write when the testing hook asks for it.
+fn crash_point() {
+    let done = WRITTEN.fetch_add(1, Ordering::SeqCst) + 1;
+    if let Some(n) = std::env::var("THIOMAP_CRASH_AFTER_WRITES")
+        .ok()
+        .and_then(|v| v.parse::<u64>().ok())
+    {
+        if done >= n {
+            std::process::abort();
+        }
+    }
+}
 
 /// The temporary name used while `path` is being written.
 fn temporary_name(path: &Path) -> PathBuf {
@@ -22,6 +39,30 @@ fn temporary_name(path: &Path) -> PathBuf {
         .unwrap_or_default();
     let n = COUNTER.fetch_add(1, Ordering::Relaxed);
     path.with_file_name(format!(".{name}.tmp-{}-{n}", std::process::id()))
+}
+
+/// Whether a file name is one of our temporaries (`.<name>.tmp-<pid>-<n>`).
+pub fn is_temporary(name: &str) -> bool {
+    name.starts_with('.') && name.contains(".tmp-")
+}
+
+/// Removes temporaries a killed process left in `dir` and its subfolders.
+pub fn remove_stale_temporaries(dir: &Path) -> std::io::Result<()> {
+    if !dir.is_dir() {
+        return Ok(());
+    }
+    for e in fs::read_dir(dir)? {
+        let p = e?.path();
+        if p.is_dir() {
+            remove_stale_temporaries(&p)?;
+        } else if p
+            .file_name()
+            .is_some_and(|n| is_temporary(&n.to_string_lossy()))
+        {
+            fs::remove_file(&p)?;
+        }
+    }
+    Ok(())
 }
 
 /// Creates `path` atomically from what `write` puts into the file.
@@ -42,7 +83,9 @@ where
     fs::rename(&tmp, path).map_err(|e| {
         let _ = fs::remove_file(&tmp);
         err(e)
-    })
+    })?;
+    crash_point();
+    Ok(())
 }
 
 /// Creates `path` atomically with the given bytes.

@@ -14,7 +14,8 @@ use crate::fits::header::{Card, Value};
 use crate::fits::write::{write_file, ImageData, ImageHdu};
 
 /// Prepares `dir`: refuses an existing non-empty folder unless `overwrite`; with it,
-/// removes `run.json` first so the folder reads as incomplete until the run ends.
+/// removes `run.json` first so the folder reads as incomplete until the run ends, and any
+/// temporaries a killed run left behind.
 pub fn prepare(dir: &Path, overwrite: bool) -> Result<(), OutputError> {
     let io = |source| OutputError::Io {
         path: dir.to_path_buf(),
@@ -31,6 +32,8 @@ pub fn prepare(dir: &Path, overwrite: bool) -> Result<(), OutputError> {
         if run.exists() {
             std::fs::remove_file(&run).map_err(|source| OutputError::Io { path: run, source })?;
         }
+        // A killed run may have left temporaries; they are never results.
+        super::atomic::remove_stale_temporaries(dir).map_err(io)?;
     }
     std::fs::create_dir_all(dir).map_err(io)
 }

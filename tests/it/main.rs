@@ -2,6 +2,7 @@
 //! `tests/fixtures/` with their provenance; malformed inputs are built inside each test.
 
 mod bad_input;
+mod batch;
 mod cli;
 mod demo;
 mod external;

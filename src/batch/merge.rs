@@ -1,0 +1,263 @@
+//! Merging results folders into one archive table: `archive.csv` (one row per cube:
+//! `cube`, `status`, `area_<class>` for every class id, `mean_<id>` for every member or
+//! group, `mean_rmse`), `archive.json`, the joined failure lists, every manifest entry
+//! without a result, and a chart of class area fractions by cube.
+
+use std::collections::{BTreeMap, BTreeSet};
+use std::path::{Path, PathBuf};
+
+use serde::Serialize;
+
+/// One cube of the archive table.
+#[derive(Debug, Clone, Serialize, PartialEq)]
+pub struct Row {
+    pub cube: String,
+    /// `ok`, `failed` or `missing`.
+    pub status: String,
+    pub areas: BTreeMap<String, f64>,
+    pub means: BTreeMap<String, f64>,
+    pub mean_rmse: Option<f64>,
+    /// Why, when failed or missing.
+    pub reason: Option<String>,
+}
+
+/// The merged archive.
+#[derive(Debug, Clone, Serialize)]
+pub struct Archive {
+    pub rows: Vec<Row>,
+    pub classes: Vec<String>,
+    pub ids: Vec<String>,
+}
+
+fn walk_results(root: &Path, dir: &Path, out: &mut Vec<(String, PathBuf)>) {
+    if dir.join("run.json").is_file() && dir.join("summary.json").is_file() {
+        let rel = dir
+            .strip_prefix(root)
+            .unwrap_or(dir)
+            .to_string_lossy()
+            .into_owned();
+        out.push((rel, dir.to_path_buf()));
+        return;
+    }
+    if let Ok(rd) = std::fs::read_dir(dir) {
+        let mut subs: Vec<PathBuf> = rd
+            .flatten()
+            .map(|e| e.path())
+            .filter(|p| p.is_dir())
+            .collect();
+        subs.sort();
+        for s in subs {
+            walk_results(root, &s, out);
+        }
+    }
+}
+
+fn bookkeeping(dir: &Path, prefix: &str, ext: &str) -> Vec<PathBuf> {
+    let mut v: Vec<PathBuf> = std::fs::read_dir(dir)
+        .map(|rd| {
+            rd.flatten()
+                .map(|e| e.path())
+                .filter(|p| {
+                    p.file_name()
+                        .map(|n| {
+                            let n = n.to_string_lossy();
+                            n.starts_with(prefix) && n.ends_with(ext)
+                        })
+                        .unwrap_or(false)
+                })
+                .collect()
+        })
+        .unwrap_or_default();
+    v.sort();
+    v
+}
+
+/// Merges the results under `dirs` (batch output folders).
+pub fn merge(dirs: &[PathBuf]) -> anyhow::Result<Archive> {
+    use anyhow::Context as _;
+    let mut rows: BTreeMap<String, Row> = BTreeMap::new();
+    let mut classes = BTreeSet::new();
+    let mut ids: Vec<String> = Vec::new();
+    let mut listed: BTreeSet<String> = BTreeSet::new();
+    for dir in dirs {
+        if !dir.is_dir() {
+            anyhow::bail!("{}: not a folder", dir.display());
+        }
+        let mut found = Vec::new();
+        walk_results(dir, dir, &mut found);
+        for (cube, path) in found {
+            let text = std::fs::read_to_string(path.join("summary.json"))
+                .with_context(|| format!("{}", path.join("summary.json").display()))?;
+            let s: serde_json::Value = serde_json::from_str(&text)
+                .with_context(|| format!("{}: not JSON", path.join("summary.json").display()))?;
+            let mut areas = BTreeMap::new();
+            if let Some(c) = s["classes"].as_object() {
+                for (k, v) in c {
+                    classes.insert(k.clone());
+                    areas.insert(k.clone(), v.as_f64().unwrap_or(0.0));
+                }
+            }
+            let mut means = BTreeMap::new();
+            if let Some(pm) = s["per_member"].as_array() {
+                for m in pm {
+                    let id = m["id"].as_str().unwrap_or("").to_string();
+                    if id == "shade" || id.is_empty() {
+                        continue;
+                    }
+                    if !ids.contains(&id) {
+                        ids.push(id.clone());
+                    }
+                    means.insert(id, m["mean"].as_f64().unwrap_or(f64::NAN));
+                }
+            }
+            rows.insert(
+                cube.clone(),
+                Row {
+                    cube,
+                    status: "ok".into(),
+                    areas,
+                    means,
+                    mean_rmse: s["mean_rmse"].as_f64(),
+                    reason: None,
+                },
+            );
+        }
+        for f in bookkeeping(dir, "failures", ".csv") {
+            let mut r = csv::Reader::from_path(&f).with_context(|| format!("{}", f.display()))?;
+            for rec in r.records() {
+                let rec = rec.with_context(|| format!("{}", f.display()))?;
+                let cube = rec.get(0).unwrap_or("").to_string();
+                let reason = format!("{}: {}", rec.get(1).unwrap_or(""), rec.get(2).unwrap_or(""));
+                rows.entry(cube.clone()).or_insert(Row {
+                    cube,
+                    status: "failed".into(),
+                    areas: BTreeMap::new(),
+                    means: BTreeMap::new(),
+                    mean_rmse: None,
+                    reason: Some(reason),
+                });
+            }
+        }
+        for f in bookkeeping(dir, "manifest", ".txt") {
+            let text = std::fs::read_to_string(&f).with_context(|| format!("{}", f.display()))?;
+            listed.extend(
+                text.lines()
+                    .map(str::trim)
+                    .filter(|l| !l.is_empty())
+                    .map(String::from),
+            );
+        }
+    }
+    for cube in listed {
+        rows.entry(cube.clone()).or_insert(Row {
+            cube,
+            status: "missing".into(),
+            areas: BTreeMap::new(),
+            means: BTreeMap::new(),
+            mean_rmse: None,
+            reason: Some(
+                "listed in a manifest, but no complete result and no failure was found".into(),
+            ),
+        });
+    }
+    Ok(Archive {
+        rows: rows.into_values().collect(),
+        classes: classes.into_iter().collect(),
+        ids,
+    })
+}
+
+impl Archive {
+    /// `archive.csv` text.
+    pub fn to_csv(&self) -> anyhow::Result<Vec<u8>> {
+        let mut w = csv::Writer::from_writer(Vec::new());
+        let mut header = vec!["cube".to_string(), "status".to_string()];
+        header.extend(self.classes.iter().map(|c| format!("area_{c}")));
+        header.extend(self.ids.iter().map(|i| format!("mean_{i}")));
+        header.push("mean_rmse".into());
+        w.write_record(&header)?;
+        for r in &self.rows {
+            let mut rec = vec![r.cube.clone(), r.status.clone()];
+            let num = |v: Option<&f64>| v.map(|x| format!("{x:.6}")).unwrap_or_default();
+            let ok = r.status == "ok";
+            rec.extend(self.classes.iter().map(|c| {
+                if ok {
+                    num(Some(r.areas.get(c).unwrap_or(&0.0)))
+                } else {
+                    String::new()
+                }
+            }));
+            rec.extend(self.ids.iter().map(|i| num(r.means.get(i))));
+            rec.push(r.mean_rmse.map(|x| format!("{x:.6e}")).unwrap_or_default());
+            w.write_record(&rec)?;
+        }
+        Ok(w.into_inner()?)
+    }
+
+    /// A stacked bar chart of class area fractions by cube, as SVG.
+    pub fn chart_svg(&self) -> Result<String, String> {
+        use plotters::prelude::*;
+        crate::render::plot::register_font();
+        let ok: Vec<&Row> = self.rows.iter().filter(|r| r.status == "ok").collect();
+        let n = ok.len().max(1);
+        let w = (160 + 40 * n as u32).max(640);
+        let mut svg = String::new();
+        {
+            let root = SVGBackend::with_string(&mut svg, (w, 480)).into_drawing_area();
+            root.fill(&WHITE).map_err(|e| e.to_string())?;
+            let mut chart = ChartBuilder::on(&root)
+                .caption(
+                    "Unit classes across the archive (area fraction)",
+                    (crate::render::plot::FAMILY, 18),
+                )
+                .margin(12)
+                .x_label_area_size(40)
+                .y_label_area_size(50)
+                .build_cartesian_2d(0f64..n as f64, 0f64..1f64)
+                .map_err(|e| e.to_string())?;
+            chart
+                .configure_mesh()
+                .disable_x_mesh()
+                .x_labels(n.min(30))
+                .x_label_formatter(&|x| {
+                    let i = *x as usize;
+                    ok.get(i).map(|r| r.cube.clone()).unwrap_or_default()
+                })
+                .y_desc("area fraction")
+                .label_style((crate::render::plot::FAMILY, 11))
+                .draw()
+                .map_err(|e| e.to_string())?;
+            for (ci, class) in self.classes.iter().enumerate() {
+                let colour = Palette99::pick(ci).mix(0.9);
+                let bars = ok.iter().enumerate().map(|(i, r)| {
+                    let below: f64 = self.classes[..ci]
+                        .iter()
+                        .map(|c| r.areas.get(c).copied().unwrap_or(0.0))
+                        .sum();
+                    let h = r.areas.get(class).copied().unwrap_or(0.0);
+                    Rectangle::new(
+                        [(i as f64 + 0.1, below), (i as f64 + 0.9, below + h)],
+                        colour.filled(),
+                    )
+                });
+                chart
+                    .draw_series(bars)
+                    .map_err(|e| e.to_string())?
+                    .label(class.clone())
+                    .legend(move |(x, y)| {
+                        Rectangle::new([(x, y - 5), (x + 12, y + 5)], colour.filled())
+                    });
+            }
+            chart
+                .configure_series_labels()
+                .position(SeriesLabelPosition::UpperRight)
+                .label_font((crate::render::plot::FAMILY, 12))
+                .background_style(WHITE.mix(0.85))
+                .border_style(BLACK)
+                .draw()
+                .map_err(|e| e.to_string())?;
+            root.present().map_err(|e| e.to_string())?;
+        }
+        Ok(svg)
+    }
+}
