@@ -143,6 +143,9 @@ struct GroupRecord<'a> {
 #[derive(Serialize)]
 pub struct UnmixSummary<'a> {
     pub cube: String,
+    /// The observation time the cube declares, if any.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub observation_time: Option<String>,
     pub endmembers: &'a [String],
     pub groups: serde_json::Value,
     pub per_member: Vec<unmix::PlaneStats>,
@@ -175,6 +178,7 @@ pub fn unmix_summary<'a>(
     }
     UnmixSummary {
         cube: name_of(&p.cube.info.path),
+        observation_time: p.cube.info.about.time.clone(),
         endmembers: &out.ids,
         groups: serde_json::to_value(
             p.model

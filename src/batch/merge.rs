@@ -17,6 +17,8 @@ pub struct Row {
     pub areas: BTreeMap<String, f64>,
     pub means: BTreeMap<String, f64>,
     pub mean_rmse: Option<f64>,
+    /// The observation time the cube declared, if any.
+    pub time: Option<String>,
     /// Why, when failed or missing.
     pub reason: Option<String>,
 }
@@ -118,6 +120,7 @@ pub fn merge(dirs: &[PathBuf]) -> anyhow::Result<Archive> {
                     areas,
                     means,
                     mean_rmse: s["mean_rmse"].as_f64(),
+                    time: s["observation_time"].as_str().map(String::from),
                     reason: None,
                 },
             );
@@ -134,6 +137,7 @@ pub fn merge(dirs: &[PathBuf]) -> anyhow::Result<Archive> {
                     areas: BTreeMap::new(),
                     means: BTreeMap::new(),
                     mean_rmse: None,
+                    time: None,
                     reason: Some(reason),
                 });
             }
@@ -155,6 +159,7 @@ pub fn merge(dirs: &[PathBuf]) -> anyhow::Result<Archive> {
             areas: BTreeMap::new(),
             means: BTreeMap::new(),
             mean_rmse: None,
+            time: None,
             reason: Some(
                 "listed in a manifest, but no complete result and no failure was found".into(),
             ),
@@ -194,11 +199,17 @@ impl Archive {
         Ok(w.into_inner()?)
     }
 
-    /// A stacked bar chart of class area fractions by cube, as SVG.
+    /// A stacked bar chart of class area fractions by cube, as SVG — in order of
+    /// observation time, labelled by it, when every mapped cube declares one (ISO 8601 text
+    /// sorts in time order); by cube otherwise.
     pub fn chart_svg(&self) -> Result<String, String> {
         use plotters::prelude::*;
         crate::render::plot::register_font();
-        let ok: Vec<&Row> = self.rows.iter().filter(|r| r.status == "ok").collect();
+        let mut ok: Vec<&Row> = self.rows.iter().filter(|r| r.status == "ok").collect();
+        let by_time = !ok.is_empty() && ok.iter().all(|r| r.time.is_some());
+        if by_time {
+            ok.sort_by(|a, b| a.time.cmp(&b.time).then(a.cube.cmp(&b.cube)));
+        }
         let n = ok.len().max(1);
         let w = (160 + 40 * n as u32).max(640);
         let mut svg = String::new();
@@ -207,28 +218,41 @@ impl Archive {
             root.fill(&WHITE).map_err(|e| e.to_string())?;
             let mut chart = ChartBuilder::on(&root)
                 .caption(
-                    "Unit classes across the archive (area fraction)",
+                    if by_time {
+                        "Unit classes across the archive by observation time (area fraction)"
+                    } else {
+                        "Unit classes across the archive by cube (area fraction)"
+                    },
                     (crate::render::plot::FAMILY, 18),
                 )
                 .margin(12)
                 .x_label_area_size(40)
                 .y_label_area_size(50)
-                .build_cartesian_2d(0f64..n as f64, 0f64..1f64)
+                .build_cartesian_2d(0f64..n as f64, 0f64..1.4f64) // headroom for the legend
                 .map_err(|e| e.to_string())?;
             chart
                 .configure_mesh()
                 .disable_x_mesh()
-                .x_labels(n.min(30))
-                .x_label_formatter(&|x| {
-                    let i = *x as usize;
-                    ok.get(i).map(|r| r.cube.clone()).unwrap_or_default()
-                })
+                .x_labels(0)
                 .y_desc("area fraction")
                 .label_style((crate::render::plot::FAMILY, 11))
                 .draw()
                 .map_err(|e| e.to_string())?;
             for (ci, class) in self.classes.iter().enumerate() {
-                let colour = Palette99::pick(ci).mix(0.9);
+                // The shipped classes in the colours of their materials; others from a palette.
+                let colour = match class.as_str() {
+                    "yellow-sulfur" => RGBColor(228, 206, 60),
+                    "red-deposit" => RGBColor(178, 52, 38),
+                    "orange-sulfur" => RGBColor(200, 128, 50),
+                    "so2-rich" => RGBColor(205, 208, 212),
+                    "dark-silicate" => RGBColor(70, 68, 64),
+                    "unexplained" => RGBColor(255, 0, 255),
+                    _ => {
+                        let (r, g, b) = Palette99::pick(ci).rgb();
+                        RGBColor(r, g, b)
+                    }
+                }
+                .mix(0.9);
                 let bars = ok.iter().enumerate().map(|(i, r)| {
                     let below: f64 = self.classes[..ci]
                         .iter()
@@ -256,6 +280,25 @@ impl Archive {
                 .border_style(BLACK)
                 .draw()
                 .map_err(|e| e.to_string())?;
+            // One label under each bar: the observation time, or the cube.
+            let font = (crate::render::plot::FAMILY, 10).into_font().color(&BLACK);
+            for (i, r) in ok.iter().enumerate() {
+                let label = if by_time {
+                    r.time.clone().unwrap_or_default()
+                } else {
+                    r.cube.clone()
+                };
+                let (x, y) = chart.backend_coord(&(i as f64 + 0.5, 0.0));
+                root.draw_text(
+                    &label,
+                    &font.clone().pos(plotters::style::text_anchor::Pos::new(
+                        plotters::style::text_anchor::HPos::Center,
+                        plotters::style::text_anchor::VPos::Top,
+                    )),
+                    (x, y + 6),
+                )
+                .map_err(|e| e.to_string())?;
+            }
             root.present().map_err(|e| e.to_string())?;
         }
         Ok(svg)

@@ -287,3 +287,62 @@ fn bad_archive_inputs_get_clear_messages_and_spare_the_rest() {
         b"in the way"
     );
 }
+
+#[test]
+fn the_archive_chart_follows_observation_time_when_cubes_carry_one() {
+    let dir = tempfile::tempdir().unwrap();
+    let a = dir.path().join("archive");
+    std::fs::create_dir_all(&a).unwrap();
+    // Two epochs; the later one sorts first by name, so only time can order them.
+    for (name, time, seed) in [
+        ("a-late.npy", "2031-06-02T10:00:00Z", "1"),
+        ("b-early.npy", "2031-05-01T08:00:00Z", "2"),
+    ] {
+        let out = a.join(name);
+        let run = thiomap(&[
+            "demo",
+            "--out",
+            out.to_str().unwrap(),
+            "--kind",
+            "tile",
+            "--size",
+            "24",
+            "--bands",
+            "spectrometer-24",
+            "--seed",
+            seed,
+        ]);
+        assert!(run.status.success(), "{}", stderr(&run));
+        let side = out.with_extension("toml");
+        let text = std::fs::read_to_string(&side).unwrap();
+        std::fs::write(
+            &side,
+            text.replace("[about]\n", &format!("[about]\ntime = \"{time}\"\n")),
+        )
+        .unwrap();
+    }
+    for e in walk(&a) {
+        let n = e.to_string_lossy().to_string();
+        if n.contains(".truth.") || n.ends_with(".png") {
+            std::fs::remove_file(&e).unwrap();
+        }
+    }
+    let out = dir.path().join("out");
+    assert_eq!(batch(&a, &out, &[], &[]).status.code(), Some(0));
+    let merged = dir.path().join("merged");
+    assert!(thiomap(&[
+        "merge",
+        out.to_str().unwrap(),
+        "--out",
+        merged.to_str().unwrap()
+    ])
+    .status
+    .success());
+    let svg = std::fs::read_to_string(merged.join("archive-classes.svg")).unwrap();
+    assert!(svg.contains("by observation time"), "the chart is by time");
+    let (early, late) = (
+        svg.find("2031-05-01").unwrap(),
+        svg.find("2031-06-02").unwrap(),
+    );
+    assert!(early < late, "the earlier epoch is drawn first");
+}
