@@ -93,15 +93,7 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
         Some(s) => batch::shard_entries(&all, s),
         None => all,
     };
-    let threads = match a.threads {
-        Some(0) => anyhow::bail!("--threads 0: at least one thread is needed"),
-        Some(n) => n,
-        None => std::env::var("SLURM_CPUS_PER_TASK")
-            .ok()
-            .and_then(|v| v.trim().parse::<usize>().ok())
-            .filter(|n| *n > 0)
-            .unwrap_or_else(|| std::thread::available_parallelism().map_or(1, |n| n.get())),
-    };
+    let threads = super::common::thread_count(a.threads)?;
     let workers = a
         .workers
         .unwrap_or(threads)

@@ -88,18 +88,23 @@ pub struct ThreadArgs {
     threads: Option<usize>,
 }
 
+/// The thread count for `--threads`: as given, else SLURM_CPUS_PER_TASK, else every core.
+pub fn thread_count(given: Option<usize>) -> anyhow::Result<usize> {
+    Ok(match given {
+        Some(0) => anyhow::bail!("--threads 0: at least one thread is needed"),
+        Some(n) => n,
+        None => std::env::var("SLURM_CPUS_PER_TASK")
+            .ok()
+            .and_then(|v| v.trim().parse::<usize>().ok())
+            .filter(|n| *n > 0)
+            .unwrap_or_else(|| std::thread::available_parallelism().map_or(1, |n| n.get())),
+    })
+}
+
 impl ThreadArgs {
     /// Sets up the global thread pool; returns the thread count.
     pub fn init(&self) -> anyhow::Result<usize> {
-        let n = match self.threads {
-            Some(0) => anyhow::bail!("--threads 0: at least one thread is needed"),
-            Some(n) => n,
-            None => std::env::var("SLURM_CPUS_PER_TASK")
-                .ok()
-                .and_then(|v| v.trim().parse::<usize>().ok())
-                .filter(|n| *n > 0)
-                .unwrap_or_else(|| std::thread::available_parallelism().map_or(1, |n| n.get())),
-        };
+        let n = thread_count(self.threads)?;
         // A second call in one process (tests) keeps the first pool.
         let _ = rayon::ThreadPoolBuilder::new()
             .num_threads(n)

@@ -45,15 +45,20 @@ fn archive(dir: &Path, tiles: usize) -> PathBuf {
     .status
     .success());
     // Truth and previews are not cubes; a truncated copy is a broken one.
-    for e in walk(&a) {
+    remove_truth_and_previews(&a);
+    let bytes = std::fs::read(a.join("tile0.fits")).unwrap();
+    std::fs::write(a.join("broken.fits"), &bytes[..3000]).unwrap();
+    a
+}
+
+/// Removes what `thiomap demo` writes beside a cube (truth, previews): not cubes.
+fn remove_truth_and_previews(dir: &Path) {
+    for e in walk(dir) {
         let n = e.to_string_lossy().to_string();
         if n.contains(".truth.") || n.ends_with(".png") {
             std::fs::remove_file(&e).unwrap();
         }
     }
-    let bytes = std::fs::read(a.join("tile0.fits")).unwrap();
-    std::fs::write(a.join("broken.fits"), &bytes[..3000]).unwrap();
-    a
 }
 
 fn walk(dir: &Path) -> Vec<PathBuf> {
@@ -321,12 +326,7 @@ fn the_archive_chart_follows_observation_time_when_cubes_carry_one() {
         )
         .unwrap();
     }
-    for e in walk(&a) {
-        let n = e.to_string_lossy().to_string();
-        if n.contains(".truth.") || n.ends_with(".png") {
-            std::fs::remove_file(&e).unwrap();
-        }
-    }
+    remove_truth_and_previews(&a);
     let out = dir.path().join("out");
     assert_eq!(batch(&a, &out, &[], &[]).status.code(), Some(0));
     let merged = dir.path().join("merged");
