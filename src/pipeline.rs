@@ -429,7 +429,7 @@ pub fn write_unit_products(
     let info = &p.cube.info;
     let fail = |name: &str, e: String| OutputError::Io {
         path: dir.join(name),
-        source: std::io::Error::other(e),
+        error: std::io::Error::other(e),
     };
     results::write_labels(
         &dir.join("units.fits"),

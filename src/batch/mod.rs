@@ -30,10 +30,10 @@ pub struct Entry {
 /// Why an archive cannot be listed.
 #[derive(Debug, thiserror::Error)]
 pub enum BatchError {
-    #[error("{path}: cannot read: {source}")]
+    #[error("{path}: cannot read: {error}")]
     Io {
         path: PathBuf,
-        source: std::io::Error,
+        error: std::io::Error,
     },
     #[error("--out {out} lies inside the archive {archive}: results would be read back as cubes")]
     OutInsideArchive { out: PathBuf, archive: PathBuf },
@@ -79,12 +79,12 @@ pub fn discover(archive: &Path) -> Result<Vec<Entry>, BatchError> {
     while let Some(dir) = stack.pop() {
         let rd = std::fs::read_dir(&dir).map_err(|source| BatchError::Io {
             path: dir.clone(),
-            source,
+            error: source,
         })?;
         for e in rd {
             let e = e.map_err(|source| BatchError::Io {
                 path: dir.clone(),
-                source,
+                error: source,
             })?;
             let p = e.path();
             if p.is_dir() {

@@ -55,13 +55,13 @@ pub struct UnmixArgs {
     #[arg(long, value_name = "K|auto|off")]
     pub subset: Option<String>,
     /// Noise σ in reflectance for standard errors. Default: estimated from each pixel's residual.
-    #[arg(long, value_name = "SIGMA")]
+    #[arg(long, value_name = "SIGMA", allow_hyphen_values = true)]
     pub noise: Option<f64>,
     /// Unmix members the bands cannot separate separately instead of as one group.
     #[arg(long)]
     pub no_groups: bool,
     /// Grouping angle in degrees (members of one class within it are grouped). Default 1.
-    #[arg(long, value_name = "DEG")]
+    #[arg(long, value_name = "DEG", allow_hyphen_values = true)]
     pub group_angle: Option<f64>,
     /// Unmix although the band set cannot separate the library (the guard's refusal).
     #[arg(long)]

@@ -287,7 +287,7 @@ fn spectral_axis(
         .collect();
     BandTable::new(bands).map_err(|source| CubeError::Bands {
         path: path.to_path_buf(),
-        source,
+        error: source,
     })
 }
 

@@ -39,19 +39,19 @@ use crate::fits::header::Card;
 /// What can be wrong with a cube file. Every message names the file.
 #[derive(Debug, thiserror::Error)]
 pub enum CubeError {
-    #[error("{path}: cannot read: {source}")]
+    #[error("{path}: cannot read: {error}")]
     Io {
         path: PathBuf,
-        source: std::io::Error,
+        error: std::io::Error,
     },
     #[error("{path}: {reason}")]
     Malformed { path: PathBuf, reason: String },
     #[error("{path}: {reason}")]
     Unsupported { path: PathBuf, reason: String },
-    #[error("{path}: {source}")]
+    #[error("{path}: {error}")]
     Bands {
         path: PathBuf,
-        source: bands::BandError,
+        error: bands::BandError,
     },
 }
 
@@ -66,7 +66,7 @@ impl CubeError {
     pub fn io(path: &Path, source: std::io::Error) -> CubeError {
         CubeError::Io {
             path: path.to_path_buf(),
-            source,
+            error: source,
         }
     }
 }

@@ -245,7 +245,7 @@ fn write_stack(sidecar: &Path, scene: &Scene) -> Result<(), OutputError> {
             )
             .map_err(|e| OutputError::Io {
                 path: sidecar.with_file_name(&file),
-                source: std::io::Error::other(e.to_string()),
+                error: std::io::Error::other(e.to_string()),
             })?;
         crate::output::atomic::write_bytes(&sidecar.with_file_name(&file), &bytes)?;
         *entry = BandEntry {

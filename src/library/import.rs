@@ -68,7 +68,7 @@ pub fn import_csv(path: &Path, opts: &ImportOptions) -> Result<Vec<Endmember>, L
         .map_err(|e| match e.into_kind() {
             csv::ErrorKind::Io(source) => LibraryError::Io {
                 path: path.to_path_buf(),
-                source,
+                error: source,
             },
             other => err(1, format!("{other:?}")),
         })?;

@@ -325,10 +325,10 @@ pub fn interpolate(x: &[f64], y: &[f64], at: f64) -> Option<f64> {
 /// What can be wrong with a library.
 #[derive(Debug, thiserror::Error)]
 pub enum LibraryError {
-    #[error("{path}: cannot read: {source}")]
+    #[error("{path}: cannot read: {error}")]
     Io {
         path: PathBuf,
-        source: std::io::Error,
+        error: std::io::Error,
     },
     #[error("{path}:{line}: {reason}")]
     Invalid {
@@ -401,6 +401,15 @@ impl Library {
 
     /// Loads a library folder (or its `library.toml`).
     pub fn load(path: &Path) -> Result<Library, LibraryError> {
+        if !path.exists() {
+            return Err(LibraryError::Io {
+                path: path.to_path_buf(),
+                error: std::io::Error::new(
+                    std::io::ErrorKind::NotFound,
+                    "no such library folder (a folder with library.toml and members/)",
+                ),
+            });
+        }
         let folder = if path.is_dir() {
             path.to_path_buf()
         } else {
@@ -418,7 +427,7 @@ impl Library {
         let at = |rel: &str| PathBuf::from(origin).join(rel);
         let index_text = read("library.toml").map_err(|source| LibraryError::Io {
             path: at("library.toml"),
-            source,
+            error: source,
         })?;
         let index: Index = toml::from_str(&index_text).map_err(|e| LibraryError::Invalid {
             path: at("library.toml"),
@@ -445,7 +454,7 @@ impl Library {
             let rel = format!("members/{id}.spectrum");
             let text = read(&rel).map_err(|source| LibraryError::Io {
                 path: at(&rel),
-                source,
+                error: source,
             })?;
             let member = Endmember::parse(&at(&rel), &text)?;
             if &member.id != id {
@@ -507,7 +516,7 @@ impl Library {
         let members = folder.join("members");
         std::fs::create_dir_all(&members).map_err(|source| crate::output::OutputError::Io {
             path: members.clone(),
-            source,
+            error: source,
         })?;
         for m in &self.members {
             crate::output::atomic::write_bytes(

@@ -73,7 +73,7 @@ where
     let tmp = temporary_name(path);
     let err = |source| OutputError::Io {
         path: path.to_path_buf(),
-        source,
+        error: source,
     };
     let result = File::create(&tmp).and_then(|mut f| write(&mut f));
     if let Err(e) = result {

@@ -9,10 +9,10 @@ use std::path::PathBuf;
 /// What can go wrong writing an output.
 #[derive(Debug, thiserror::Error)]
 pub enum OutputError {
-    #[error("{path}: cannot write: {source}")]
+    #[error("{path}: cannot write: {error}")]
     Io {
         path: PathBuf,
-        source: std::io::Error,
+        error: std::io::Error,
     },
     #[error("{path}: already exists; pass --overwrite to replace it")]
     Exists { path: PathBuf },

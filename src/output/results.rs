@@ -19,7 +19,7 @@ use crate::fits::write::{write_file, ImageData, ImageHdu};
 pub fn prepare(dir: &Path, overwrite: bool) -> Result<(), OutputError> {
     let io = |source| OutputError::Io {
         path: dir.to_path_buf(),
-        source,
+        error: source,
     };
     if dir.exists() {
         let non_empty = std::fs::read_dir(dir).map_err(io)?.next().is_some();
@@ -30,7 +30,10 @@ pub fn prepare(dir: &Path, overwrite: bool) -> Result<(), OutputError> {
         }
         let run = dir.join("run.json");
         if run.exists() {
-            std::fs::remove_file(&run).map_err(|source| OutputError::Io { path: run, source })?;
+            std::fs::remove_file(&run).map_err(|source| OutputError::Io {
+                path: run,
+                error: source,
+            })?;
         }
         // A killed run may have left temporaries; they are never results.
         super::atomic::remove_stale_temporaries(dir).map_err(io)?;
@@ -115,7 +118,7 @@ pub fn write_png(path: &Path, img: &image::RgbImage) -> Result<(), OutputError> 
     if let Some(parent) = path.parent() {
         std::fs::create_dir_all(parent).map_err(|source| OutputError::Io {
             path: parent.to_path_buf(),
-            source,
+            error: source,
         })?;
     }
     super::atomic::write_bytes(path, &crate::render::maps::png_bytes(img))
@@ -126,12 +129,12 @@ pub fn sha256_file(path: &Path) -> Result<String, OutputError> {
     use sha2::{Digest, Sha256};
     let mut file = std::fs::File::open(path).map_err(|source| OutputError::Io {
         path: path.to_path_buf(),
-        source,
+        error: source,
     })?;
     let mut h = Sha256::new();
     std::io::copy(&mut file, &mut h).map_err(|source| OutputError::Io {
         path: path.to_path_buf(),
-        source,
+        error: source,
     })?;
     Ok(format!("{:x}", h.finalize()))
 }

@@ -154,7 +154,7 @@ pub fn write_plot(path: &Path, plot: &SpectrumPlot) -> Result<(), OutputError> {
     let (w, h) = (1280u32, 760u32);
     let fail = |msg: String| OutputError::Io {
         path: path.to_path_buf(),
-        source: std::io::Error::other(msg),
+        error: std::io::Error::other(msg),
     };
     let is_png = path
         .extension()

@@ -88,3 +88,13 @@ fn every_command_has_help_with_examples() {
         assert!(text.contains("Examples:"), "{cmd} help lacks examples");
     }
 }
+
+#[test]
+fn a_missing_file_is_reported_once_in_one_line() {
+    let run = thiomap(&["inspect", "no-such-cube.fits"]);
+    assert_eq!(run.status.code(), Some(2));
+    let err = stderr(&run);
+    assert_eq!(err.matches("os error 2").count(), 1, "{err}");
+    assert_eq!(err.trim_end().lines().count(), 1, "{err}");
+    assert!(err.starts_with("thiomap: no-such-cube.fits: cannot read"), "{err}");
+}
