@@ -392,6 +392,7 @@ pub fn classify(
             colour,
         });
     }
+    disambiguate_labels(&mut units, &ids);
     nudge_colours(&mut units);
     let mut classes = BTreeMap::new();
     for u in &units {
@@ -409,6 +410,25 @@ pub fn classify(
         area_weighted: emission_deg.is_some(),
         classes,
     })
+}
+
+/// Units that share a label get their two largest members added to it
+/// ("…: basalt-dark 58 % / pyroxene-mafic 28 %"), so a legend never shows two identical names.
+fn disambiguate_labels(units: &mut [Unit], ids: &[String]) {
+    let labels: Vec<String> = units.iter().map(|u| u.label.clone()).collect();
+    for u in units.iter_mut() {
+        if u.class == rules::UNEXPLAINED || labels.iter().filter(|l| **l == u.label).count() < 2 {
+            continue;
+        }
+        let mut order: Vec<usize> = (0..u.mean.len()).collect();
+        order.sort_by(|&a, &b| u.mean[b].total_cmp(&u.mean[a]));
+        let top: Vec<String> = order
+            .iter()
+            .take(2)
+            .map(|&i| format!("{} {:.0} %", ids[i], 100.0 * u.mean[i]))
+            .collect();
+        u.label = format!("{}: {}", u.label, top.join(" / "));
+    }
 }
 
 /// Makes each unit's colour differ by at least [`MIN_DELTA_E`] from the ones before it,

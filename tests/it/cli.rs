@@ -96,5 +96,8 @@ fn a_missing_file_is_reported_once_in_one_line() {
     let err = stderr(&run);
     assert_eq!(err.matches("os error 2").count(), 1, "{err}");
     assert_eq!(err.trim_end().lines().count(), 1, "{err}");
-    assert!(err.starts_with("thiomap: no-such-cube.fits: cannot read"), "{err}");
+    assert!(
+        err.starts_with("thiomap: no-such-cube.fits: cannot read"),
+        "{err}"
+    );
 }

@@ -86,6 +86,16 @@ fn hyperspectral_globe_units_match_the_truth() {
             .collect::<Vec<_>>()
     );
     assert!(core >= 0.90, "ARI {core}");
+    // No two units share a name in the legend.
+    let mut labels: Vec<&String> = map.units.iter().map(|u| &u.label).collect();
+    labels.sort();
+    labels.dedup();
+    assert_eq!(
+        labels.len(),
+        map.units.len(),
+        "{:?}",
+        map.units.iter().map(|u| &u.label).collect::<Vec<_>>()
+    );
     // The three hot spots are unexplained, not forced into a unit.
     assert!(map.unexplained_pixels >= 3, "{}", map.unexplained_pixels);
 }
