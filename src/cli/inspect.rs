@@ -12,7 +12,7 @@ use thiomap::cube::{self, stats, Response};
 /// Show a cube's shape, bands, no-data fraction, band statistics and backplanes.
 #[derive(Debug, clap::Args)]
 #[command(
-    after_help = "Examples:\n  thiomap inspect demo-cubes/brimveil-starter.fits\n  \
+    after_help = "Examples:\n  thiomap inspect demo-cubes/brimveil-globe-mapper96.fits\n  \
                         thiomap inspect scene.npy --json | jq .shape"
 )]
 pub struct Args {

@@ -28,9 +28,10 @@ use clap::{Parser, Subcommand};
                   labelled surface units.\n\n\
                   Exit codes: 0 success; 1 finished, but some inputs failed; 2 usage or \
                   input error (the message names the file and what is wrong).",
-    after_help = "Examples:\n  thiomap inspect demo-cubes/brimveil-starter.fits\n  \
+    after_help = "Examples:\n  thiomap map demo-cubes/brimveil-globe-mapper96.fits --out results/globe\n  \
+                  thiomap inspect demo-cubes/brimveil-globe-imager7.fits\n  \
                   thiomap library check --bands imager-7\n  \
-                  thiomap convert scene.npy --out scene.fits"
+                  thiomap batch archive/ --out results/ --recipe recipe.toml"
 )]
 pub struct Cli {
     #[command(subcommand)]
@@ -43,10 +44,10 @@ enum Command {
     Convert(convert::Args),
     Demo(demo::Args),
     Library(library::Args),
+    Unmix(unmix::Args),
     Map(map::Args),
     Batch(batch::Args),
     Merge(batch::MergeArgs),
-    Unmix(unmix::Args),
 }
 
 /// Parses the command line and runs the command.

@@ -101,3 +101,26 @@ fn a_missing_file_is_reported_once_in_one_line() {
         "{err}"
     );
 }
+
+#[test]
+fn help_examples_name_shipped_demo_cubes_that_exist() {
+    let root = std::path::Path::new(env!("CARGO_MANIFEST_DIR"));
+    for cmd in [
+        vec!["--help"],
+        vec!["inspect", "--help"],
+        vec!["map", "--help"],
+        vec!["unmix", "--help"],
+    ] {
+        let run = thiomap(&cmd);
+        let text = String::from_utf8(run.stdout).unwrap();
+        for word in text
+            .split_whitespace()
+            .filter(|w| w.starts_with("demo-cubes/"))
+        {
+            assert!(
+                root.join(word).is_file(),
+                "{cmd:?} help names {word}, which does not exist"
+            );
+        }
+    }
+}
