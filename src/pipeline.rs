@@ -68,11 +68,7 @@ pub fn prepare(
     let params = recipe
         .unmix_params()
         .map_err(|e| anyhow::anyhow!("recipe: {e}"))?;
-    let library = if recipe.library == "embedded" {
-        Library::embedded()
-    } else {
-        Library::load(Path::new(&recipe.library))?
-    };
+    let library = recipe.load_library()?;
     let mut cube = timings.time("read", || cube::load(path, &OpenOptions { hdu }))?;
     let kept = recipe
         .selection()
@@ -413,9 +409,7 @@ pub fn units_summary(map: &crate::units::UnitMap) -> serde_json::Value {
     })
 }
 
-fn hex(c: [u8; 3]) -> String {
-    format!("#{:02x}{:02x}{:02x}", c[0], c[1], c[2])
-}
+use crate::render::colour::hex;
 
 /// Writes the units products: `units.fits`, `units.png`, `units-legend.svg`,
 /// `true-colour.png`, `units.csv`, `units-spectra.svg`.

@@ -212,6 +212,15 @@ impl Recipe {
         Ok(p)
     }
 
+    /// The library the recipe names: the embedded default, or a folder.
+    pub fn load_library(&self) -> Result<crate::library::Library, crate::library::LibraryError> {
+        if self.library == "embedded" {
+            Ok(crate::library::Library::embedded())
+        } else {
+            crate::library::Library::load(Path::new(&self.library))
+        }
+    }
+
     /// The naming rules the recipe names.
     pub fn load_rules(&self) -> Result<crate::units::Rules, String> {
         if self.rules == "embedded" {

@@ -42,9 +42,7 @@ pub enum BatchError {
 }
 
 fn is_cube_name(name: &str) -> bool {
-    let n = name.to_ascii_lowercase();
-    let n = n.strip_suffix(".gz").unwrap_or(&n);
-    n.ends_with(".fits") || n.ends_with(".fit") || n.ends_with(".fts") || n.ends_with(".npy")
+    crate::cube::is_fits_name(name) || name.to_ascii_lowercase().ends_with(".npy")
 }
 
 /// Whether a `.toml` is a band-stack sidecar (its `kind` says so).
@@ -263,11 +261,7 @@ pub fn is_complete(dir: &Path, expected: &serde_json::Value) -> bool {
 /// The key fields of a cube's result, computed without running it.
 pub fn expected_key(cube: &Path, recipe: &Recipe) -> anyhow::Result<serde_json::Value> {
     let reader = crate::cube::open(cube, &Default::default())?;
-    let library = if recipe.library == "embedded" {
-        crate::library::Library::embedded()
-    } else {
-        crate::library::Library::load(Path::new(&recipe.library))?
-    };
+    let library = recipe.load_library()?;
     Ok(serde_json::json!({
         "version": crate::VERSION,
         "inputs": crate::output::results::input_records(&reader.info().inputs)?,

@@ -13,7 +13,7 @@ use thiomap::library::import::{import_csv, ImportOptions, WavelengthUnit};
 use thiomap::library::resample::resample;
 use thiomap::library::{Class, Library, Source, SourceTag};
 use thiomap::output::OutputError;
-use thiomap::render::colour::ColourMatrix;
+use thiomap::render::colour::{hex, ColourMatrix};
 use thiomap::render::plot::{write_plot, Series, SpectrumPlot, Strip};
 
 use super::common::{BandArgs, LibraryArgs};
@@ -219,10 +219,6 @@ struct MemberRow<'a> {
     temperature_k: Option<f64>,
     grain_um: Option<f64>,
     colour: String,
-}
-
-fn hex(rgb: [u8; 3]) -> String {
-    format!("#{:02x}{:02x}{:02x}", rgb[0], rgb[1], rgb[2])
 }
 
 fn member_colour(m: &thiomap::library::Endmember) -> [u8; 3] {

@@ -47,6 +47,14 @@ pub struct Band {
 }
 
 impl Band {
+    /// A band with a Gaussian response of this FWHM (µm).
+    pub fn gaussian(centre_um: f64, fwhm_um: f64) -> Band {
+        Band {
+            centre_um,
+            response: Response::Gaussian { fwhm_um },
+        }
+    }
+
     /// The full width at half maximum, µm: given for a Gaussian, measured on the table
     /// for a tabulated response (linear interpolation at half the peak), none for a point.
     pub fn fwhm_um(&self) -> Option<f64> {
@@ -434,10 +442,7 @@ mod tests {
     use super::*;
 
     fn gaussian(centre_um: f64, fwhm_um: f64) -> Band {
-        Band {
-            centre_um,
-            response: Response::Gaussian { fwhm_um },
-        }
+        Band::gaussian(centre_um, fwhm_um)
     }
 
     #[test]

@@ -286,6 +286,13 @@ pub struct OpenOptions {
     pub hdu: Option<String>,
 }
 
+/// Whether a file name (any case) is a FITS file: `.fits`, `.fit`, `.fts`, optionally `.gz`.
+pub fn is_fits_name(name: &str) -> bool {
+    let n = name.to_ascii_lowercase();
+    let n = n.strip_suffix(".gz").unwrap_or(&n);
+    n.ends_with(".fits") || n.ends_with(".fit") || n.ends_with(".fts")
+}
+
 /// Opens a cube by its file name: `.fits`, `.fit`, `.fts` (optionally `.gz`), `.npy`
 /// (with its `.toml` sidecar), or a band-table `.toml` (a band stack, or the sidecar of
 /// a `.npy`).
@@ -294,16 +301,13 @@ pub fn open(path: &Path, opts: &OpenOptions) -> Result<Box<dyn CubeReader>, Cube
         .file_name()
         .map(|n| n.to_string_lossy().to_ascii_lowercase())
         .unwrap_or_default();
-    let stem = name.strip_suffix(".gz").unwrap_or(&name);
-    if opts.hdu.is_some()
-        && !(stem.ends_with(".fits") || stem.ends_with(".fit") || stem.ends_with(".fts"))
-    {
+    if opts.hdu.is_some() && !is_fits_name(&name) {
         return Err(CubeError::Unsupported {
             path: path.to_path_buf(),
             reason: "--hdu applies to FITS files only".into(),
         });
     }
-    if stem.ends_with(".fits") || stem.ends_with(".fit") || stem.ends_with(".fts") {
+    if is_fits_name(&name) {
         Ok(Box::new(fits::FitsCube::open(path, opts.hdu.as_deref())?))
     } else if name.ends_with(".npy") {
         Ok(Box::new(npy::NpyCube::open(path)?))

@@ -153,10 +153,7 @@ mod tests {
     use super::*;
 
     fn gaussian(centre_um: f64, fwhm_um: f64) -> Band {
-        Band {
-            centre_um,
-            response: Response::Gaussian { fwhm_um },
-        }
+        Band::gaussian(centre_um, fwhm_um)
     }
 
     #[test]

@@ -191,6 +191,11 @@ pub fn delta_e(a: [f64; 3], b: [f64; 3]) -> f64 {
     ((a[0] - b[0]).powi(2) + (a[1] - b[1]).powi(2) + (a[2] - b[2]).powi(2)).sqrt()
 }
 
+/// An 8-bit sRGB colour as `#rrggbb`.
+pub fn hex(rgb: [u8; 3]) -> String {
+    format!("#{:02x}{:02x}{:02x}", rgb[0], rgb[1], rgb[2])
+}
+
 /// The inverse of the sRGB transfer function (IEC 61966-2-1).
 pub fn decode(encoded: f64) -> f64 {
     if encoded <= 0.04045 {

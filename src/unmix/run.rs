@@ -149,6 +149,8 @@ struct Kernel {
     ecol64: Vec<f64>,
     ety32: EtyFn,
     f64_path: bool,
+    /// Material columns (members and groups; shade excluded).
+    mat: usize,
 }
 
 impl Kernel {
@@ -168,13 +170,14 @@ impl Kernel {
             ecol64,
             ety32: ety_kernel(mat),
             f64_path,
+            mat,
         }
     }
 
     /// b = Eᵀy over the materials (the shade entry stays 0).
     #[inline]
     fn ety(&self, y: &[f32], b: &mut [f64]) {
-        let mat = self.ecol64.len() / y.len().max(1);
+        let mat = self.mat;
         if self.f64_path {
             // f32 × f32 products are exact in f64: this is Eᵀy of the f32 inputs.
             for v in b[..mat].iter_mut() {
@@ -225,7 +228,7 @@ impl Kernel {
             // Eight bands at a time: the fit stays in registers while the members are
             // added, then the squared residuals go into eight f32 lanes (positive terms, no
             // cancellation — it is the Gram form yᵀy − 2aᵀb + aᵀGa that would need f64).
-            let mat = a32_len(self, nb);
+            let mat = self.mat;
             let mut a32 = [0f32; 16];
             for (d, s) in a32.iter_mut().zip(&a[..mat]) {
                 *d = *s as f32;
@@ -262,12 +265,6 @@ impl Kernel {
         }
         rss
     }
-}
-
-/// The number of material columns of a kernel for `nb` bands.
-#[inline]
-fn a32_len(k: &Kernel, nb: usize) -> usize {
-    k.ecol32.len() / nb.max(1)
 }
 
 /// Unmixes every pixel of `cube`. `progress` is called with the number of rows finished.

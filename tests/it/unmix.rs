@@ -19,11 +19,16 @@ fn solve64(m: &Model, y: &[f64]) -> Vec<f64> {
     let b: Vec<f64> = (0..m.columns())
         .map(|j| (0..y.len()).map(|i| m.e[(i, j)] * y[i]).sum())
         .collect();
+    solve_b(m, &b)
+}
+
+/// Solves from b = Eᵀy over every column.
+fn solve_b(m: &Model, b: &[f64]) -> Vec<f64> {
     let mut a = vec![0.0; m.columns()];
     let mut work = vec![0.0; 2 * m.columns()];
     solve_pixel(
         &m.table64,
-        &b,
+        b,
         m.full_mask(),
         m.full_mask(),
         m.solver.non_negative(),
@@ -42,18 +47,7 @@ fn solve32(m: &Model, y: &[f64]) -> Vec<f64> {
                 .sum::<f32>() as f64
         })
         .collect();
-    let mut a = vec![0.0; m.columns()];
-    let mut work = vec![0.0; 2 * m.columns()];
-    solve_pixel(
-        &m.table64,
-        &b,
-        m.full_mask(),
-        m.full_mask(),
-        m.solver.non_negative(),
-        &mut a,
-        &mut work,
-    );
-    a
+    solve_b(m, &b)
 }
 
 fn matrix(rows: &[Vec<f64>]) -> Array2<f64> {
