@@ -5,7 +5,7 @@
 //! - [`model`]: the endmember matrix with groups and shade, the identifiability guard, and
 //!   the passive-set table (EᵀE and its factorisations computed once per cube).
 //! - [`solve`]: the per-pixel exact active-set solver, generic over f32 and f64.
-//! - [`run`]: the parallel driver over blocks of rows.
+//! - [`run`]: the parallel driver over blocks of rows: whitening, the solver, residuals.
 //!
 //! Methods: NNLS (Lawson & Hanson 1974, *Solving Least Squares Problems*); fast NNLS on
 //! precomputed EᵀE and Eᵀy (Bro & De Jong 1997, J. Chemometrics 11:393); FCLS (Heinz &
@@ -24,7 +24,7 @@ pub mod solve;
 
 pub use model::{Model, ModelError};
 pub use params::{ParamError, Solver, Subsets, UnmixParams};
-pub use run::{unmix, Counts, RunOptions, UnmixOutput};
+pub use run::{unmix, unmix_with, Counts, RunOptions, UnmixOutput};
 
 use serde::Serialize;
 

@@ -12,13 +12,16 @@
 //! ```
 //!
 //! and the multipliers of the members held at zero are μ = G a − b + λ1 (μ ≥ 0 at the
-//! optimum). Without it, a_P = G_PP⁻¹ b_P and μ = G a − b. Each table entry stores one
-//! (2M × M) matrix and a 2M offset giving [a; μ] from b, so an active-set step is one
-//! matrix–vector product and a sign test (Bro & De Jong 1997 precompute EᵀE and Eᵀy the
-//! same way). The entry also keeps the diagonal of the covariance factor for standard
-//! errors: Z⁻¹ top-left block = G⁻¹ − G⁻¹11ᵀG⁻¹/(1ᵀG⁻¹1) with the constraint, G_PP⁻¹
-//! without. A shade member is a zero column: G is then singular but the bordered system is
-//! not, which is why the bordered form is inverted rather than G.
+//! optimum). Without it, a_P = G_PP⁻¹ b_P and μ = G a − b. Bro & De Jong (1997) precompute
+//! EᵀE and Eᵀy the same way; here the pixel enters whitened instead: with E = Q R (thin QR,
+//! Q orthonormal), z = Qᵀy and b = Rᵀz, so each entry stores the (2M × D) map W and a 2M
+//! offset giving [a; μ] = W z + off, and an active-set step is one small matrix–vector
+//! product and a sign test. Maps over z amplify rounding by κ(E) where maps over b amplify
+//! it by κ(G) = κ(E)²; that is what makes an f32 table accurate enough for the fast path.
+//! The entry also keeps the standard error factors: the square roots of the diagonal of
+//! Z⁻¹'s top-left block = G⁻¹ − G⁻¹11ᵀG⁻¹/(1ᵀG⁻¹1) with the constraint, G_PP⁻¹ without. A
+//! shade member is a zero column: G is then singular but the bordered system is not, which
+//! is why the bordered form is inverted rather than G.
 
 use ndarray::Array2;
 
@@ -60,18 +63,70 @@ pub enum ModelError {
     TooManyColumns { columns: usize, max: usize },
 }
 
-/// One passive set's precomputed solution map.
+/// The precomputed solution maps of every passive set, flat, in one precision.
+///
+/// Entry `mask` holds, contiguously: the map W (D columns of 2M values: column k gives z_k's
+/// coefficients, rows 0..M for a and M..2M for μ), the offset (2M values) and the standard
+/// error factors √(covariance factor) (M values, 0 outside the passive set).
 #[derive(Debug, Clone)]
-pub struct Entry<T> {
-    /// (2M × M) column-major: column j (2M values, contiguous) holds b_j's coefficients;
-    /// rows 0..M give a, rows M..2M give μ.
-    pub map: Vec<T>,
-    /// 2M offsets.
-    pub off: Vec<T>,
-    /// Diagonal of the covariance factor for members in P (0 elsewhere).
-    pub var: Vec<f64>,
-    /// Its square roots, so a standard error is one multiplication.
-    pub sd: Vec<f64>,
+pub struct Table<T> {
+    /// M: columns (members, groups, shade).
+    pub columns: usize,
+    /// D: the whitened dimensions z = Qᵀy.
+    pub dims: usize,
+    stride: usize,
+    data: Vec<T>,
+    ok: Vec<bool>,
+}
+
+/// One entry of a [`Table`].
+#[derive(Debug, Clone, Copy)]
+pub struct EntryRef<'a, T> {
+    /// D × 2M, column-major.
+    pub map: &'a [T],
+    /// 2M.
+    pub off: &'a [T],
+    /// M.
+    pub sd: &'a [T],
+}
+
+impl<T: Copy> Table<T> {
+    fn with_capacity(columns: usize, dims: usize, zero: T) -> Table<T> {
+        let stride = 2 * columns * (dims + 1) + columns;
+        Table {
+            columns,
+            dims,
+            stride,
+            data: vec![zero; stride << columns],
+            ok: vec![false; 1 << columns],
+        }
+    }
+
+    /// The values of entry `mask` (valid or not): map, offset, sd, in that order.
+    #[inline(always)]
+    pub fn raw(&self, mask: u32) -> &[T] {
+        let at = mask as usize * self.stride;
+        &self.data[at..at + self.stride]
+    }
+
+    /// Whether passive set `mask` has a (regular) entry.
+    #[inline(always)]
+    pub fn has(&self, mask: u32) -> bool {
+        self.ok.get(mask as usize).copied().unwrap_or(false)
+    }
+
+    /// Entry `mask`, or `None` where its system is singular or it was not needed.
+    #[inline]
+    pub fn entry(&self, mask: u32) -> Option<EntryRef<'_, T>> {
+        if !self.has(mask) {
+            return None;
+        }
+        let raw = self.raw(mask);
+        let (m, d) = (self.columns, self.dims);
+        let (map, rest) = raw.split_at(2 * m * d);
+        let (off, sd) = rest.split_at(2 * m);
+        Some(EntryRef { map, off, sd })
+    }
 }
 
 /// The model: columns, matrix, and the passive-set table.
@@ -90,11 +145,14 @@ pub struct Model {
     pub subset_size: Option<usize>,
     /// Allowed masks in subset mode (each includes shade when used).
     pub subsets: Vec<u32>,
-    /// Entries by passive-set mask; `None` where the system is singular or not needed.
-    /// Kept in f64 for both paths: explicit inverses evaluated in f32 amplify rounding by
-    /// cond(G) (1e-2 on the 32 × 8 SciPy reference problem), while the M-dimensional step
-    /// costs little next to Eᵀy.
-    pub table64: Vec<Option<Entry<f64>>>,
+    /// The whitening basis Q (bands × D, orthonormal columns) of E = Q R: a pixel enters
+    /// the solver as z = Qᵀy.
+    pub q: Array2<f64>,
+    /// R (D × M; the shade column is zero), so that Eᵀy = Rᵀz.
+    pub r: Array2<f64>,
+    /// The passive-set maps from z, in f64 (the reference path) and f32 (the fast path).
+    pub table64: Table<f64>,
+    pub table32: Table<f32>,
     /// κ of E (with shade) and a row of ones.
     pub condition: f64,
     pub closest_pairs: Vec<Pair>,
@@ -259,13 +317,25 @@ impl Model {
                 _ => true,
             }
         };
-        let mut table64 = Vec::with_capacity(1 << m);
+        let (q, r) = whiten(&e, material);
+        let dims = q.ncols();
+        let mut table64 = Table::with_capacity(m, dims, 0.0f64);
+        let mut table32 = Table::with_capacity(m, dims, 0.0f32);
         for mask in 0..(1u32 << m) {
-            table64.push(if needed(mask) {
-                entry(&g, mask, p.solver.sum_to_one())
-            } else {
-                None
-            });
+            if !needed(mask) {
+                continue;
+            }
+            let Some(sol) = solution_map(&g, mask, p.solver.sum_to_one()) else {
+                continue;
+            };
+            let values = sol.over_z(&r);
+            let at = mask as usize * table64.stride;
+            table64.data[at..at + values.len()].copy_from_slice(&values);
+            for (d, v) in table32.data[at..at + values.len()].iter_mut().zip(&values) {
+                *d = *v as f32;
+            }
+            table64.ok[mask as usize] = true;
+            table32.ok[mask as usize] = true;
         }
         Ok(Model {
             ids,
@@ -275,15 +345,81 @@ impl Model {
             solver: p.solver,
             subset_size,
             subsets,
+            q,
+            r,
             table64,
+            table32,
             condition,
             closest_pairs: closest,
         })
     }
+
+    /// The diagonal of the covariance factor of passive set `mask` (σ² times it is each
+    /// abundance's variance: the constrained Cramér–Rao form with the sum-to-one
+    /// constraint), or `None` where the set's system is singular.
+    pub fn covariance_factor(&self, mask: u32) -> Option<Vec<f64>> {
+        let g = self.e.t().dot(&self.e);
+        solution_map(&g, mask, self.solver.sum_to_one()).map(|s| s.var)
+    }
+}
+
+/// E = Q R over the material columns (the shade column of R stays zero; Q has the material
+/// count of columns, zero beyond the rank): Q's columns span E's, so z = Qᵀy carries everything the fit sees and b = Eᵀy = Rᵀz.
+/// Working from z instead of b keeps the maps' rounding amplification at κ(E) rather than
+/// κ(G) = κ(E)², which is what lets the f32 path use f32 maps.
+fn whiten(e: &Array2<f64>, material: usize) -> (Array2<f64>, Array2<f64>) {
+    let (nb, m) = e.dim();
+    let mat = nalgebra::DMatrix::from_fn(nb, material, |i, j| e[(i, j)]);
+    let qr = mat.qr();
+    let (q, r) = (qr.q(), qr.r());
+    // With fewer bands than materials Q has only `nb` columns; padding with zeros keeps D
+    // equal to the material count, so every table has D = M or M − 1.
+    let rank = q.ncols();
+    let q = Array2::from_shape_fn(
+        (nb, material),
+        |(i, k)| if k < rank { q[(i, k)] } else { 0.0 },
+    );
+    let r = Array2::from_shape_fn((material, m), |(k, j)| {
+        if k < rank && j < material {
+            r[(k, j)]
+        } else {
+            0.0
+        }
+    });
+    (q, r)
+}
+
+/// A passive set's solution as an affine map of b = Eᵀy: [a; μ] = map·b + off.
+struct SolutionMap {
+    m: usize,
+    /// 2M × M, row-major.
+    map: Vec<f64>,
+    /// 2M.
+    off: Vec<f64>,
+    /// Diagonal of the covariance factor on P (0 elsewhere).
+    var: Vec<f64>,
+}
+
+impl SolutionMap {
+    /// The table entry over z (b = Rᵀz): W = map·Rᵀ stored column by column, then the
+    /// offset and the standard error factors.
+    fn over_z(&self, r: &Array2<f64>) -> Vec<f64> {
+        let m = self.m;
+        let dims = r.nrows();
+        let mut out = Vec::with_capacity(2 * m * (dims + 1) + m);
+        for k in 0..dims {
+            for i in 0..2 * m {
+                out.push((0..m).map(|j| self.map[i * m + j] * r[(k, j)]).sum());
+            }
+        }
+        out.extend_from_slice(&self.off);
+        out.extend(self.var.iter().map(|v| v.sqrt()));
+        out
+    }
 }
 
 /// The solution map of passive set `mask`; `None` when its system is singular.
-fn entry(g: &Array2<f64>, mask: u32, sum_to_one: bool) -> Option<Entry<f64>> {
+fn solution_map(g: &Array2<f64>, mask: u32, sum_to_one: bool) -> Option<SolutionMap> {
     let m = g.nrows();
     let p: Vec<usize> = (0..m).filter(|i| mask & (1 << i) != 0).collect();
     let k = p.len();
@@ -341,17 +477,5 @@ fn entry(g: &Array2<f64>, mask: u32, sum_to_one: bool) -> Option<Entry<f64>> {
         }
         off[m + i] = (0..m).map(|t| g[(i, t)] * a_off[t]).sum::<f64>() + lam0;
     }
-    // Column-major, so an evaluation is M vectorised multiply-adds over 2M rows.
-    let mut cols = vec![0.0; 2 * m * m];
-    for i in 0..2 * m {
-        for j in 0..m {
-            cols[j * 2 * m + i] = map[i * m + j];
-        }
-    }
-    Some(Entry {
-        map: cols,
-        off,
-        sd: var.iter().map(|v| v.sqrt()).collect(),
-        var,
-    })
+    Some(SolutionMap { m, map, off, var })
 }

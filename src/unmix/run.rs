@@ -19,25 +19,20 @@
 //! Results do not depend on the thread count: rows are the unit of work and each row's
 //! pixels are solved in order.
 
+use std::mem::MaybeUninit;
 use std::sync::atomic::{AtomicUsize, Ordering};
 
-use ndarray::{Array2, Array3, Axis};
-use num_traits::Float;
+use ndarray::{Array2, Array3};
 use rayon::prelude::*;
 
-use super::model::Model;
-use super::solve::solve_pixel;
+use super::model::{Model, Table};
+use super::solve::{avx2_available, full_step, madd, pivot, positives, tree_sum};
 use crate::cube::Cube;
 
 /// Pixels whose materials sum below this are too dark to unmix.
 pub const DARK_LIMIT: f64 = 0.02;
 
-/// f32 (the fast path) or f64 (the reference path): the precision of Eᵀy. The
-/// M-dimensional active-set steps run in f64 on both paths (see [`Model::table64`]).
-pub trait Real: Float + Send + Sync + 'static {}
-
-impl Real for f32 {}
-impl Real for f64 {}
+pub use super::solve::Real;
 
 /// Pixel counts of a run.
 #[derive(Debug, Clone, Copy, Default, PartialEq, Eq)]
@@ -83,188 +78,645 @@ pub struct RunOptions {
 /// Rows per parallel task.
 const ROWS_PER_TASK: usize = 8;
 
-/// Eᵀy for one pixel with the member count fixed at compile time, so the accumulators
-/// live in registers and each band is one vector multiply-add; four interleaved
-/// accumulator sets hide the multiply-add latency.
-#[inline]
-fn ety_fixed<const MM: usize>(y: &[f32], et: &[f32], out: &mut [f64]) {
-    let mut acc = [[0f32; MM]; 4];
+/// What every pixel of a run shares, in the run's precision `T`.
+struct Plan<'a, T> {
+    model: &'a Model,
+    table: &'a Table<T>,
+    /// Qᵀ band-major (bands × D): z = Σ_k y_k · qt[k].
+    qt: Vec<T>,
+    /// E's material columns one after another, for the residual.
+    ecol: Vec<T>,
+    bands: usize,
+    /// Material columns (members and groups; shade excluded).
+    mat: usize,
+    planes: usize,
+    full: u32,
+    non_negative: bool,
+    sum_to_one: f64,
+    opts: RunOptions,
+}
+
+impl<'a, T: Real> Plan<'a, T> {
+    fn new(model: &'a Model, opts: &RunOptions) -> Plan<'a, T> {
+        let (nb, mat) = (model.bands(), model.material_columns());
+        let dims = model.q.ncols();
+        let cast = |v: f64| T::from(v).expect("finite model values");
+        Plan {
+            model,
+            table: T::table(model),
+            qt: (0..nb)
+                .flat_map(|b| (0..dims).map(move |k| model.q[(b, k)]))
+                .map(cast)
+                .collect(),
+            ecol: (0..mat)
+                .flat_map(|j| (0..nb).map(move |b| model.e[(b, j)]))
+                .map(cast)
+                .collect(),
+            bands: nb,
+            mat,
+            planes: mat + opts.report_shade as usize,
+            full: model.full_mask(),
+            non_negative: model.solver.non_negative(),
+            sum_to_one: model.solver.sum_to_one() as u8 as f64,
+            opts: *opts,
+        }
+    }
+}
+
+/// The output slots of one task's rows (pixel-major, as the arrays store them).
+struct Slots<'a> {
+    ab: &'a mut [MaybeUninit<f32>],
+    se: &'a mut [MaybeUninit<f32>],
+    rm: &'a mut [MaybeUninit<f32>],
+    ac: &'a mut [u8],
+    um: &'a mut [bool],
+    subset: Option<&'a mut [u16]>,
+    residual: Option<&'a mut [f32]>,
+}
+
+impl Slots<'_> {
+    /// Marks pixel `px` as not unmixed (its planes NaN).
+    #[inline]
+    fn blank(&mut self, px: usize, planes: usize) {
+        for v in &mut self.ab[px * planes..(px + 1) * planes] {
+            v.write(f32::NAN);
+        }
+        for v in &mut self.se[px * planes..(px + 1) * planes] {
+            v.write(f32::NAN);
+        }
+        self.rm[px].write(f32::NAN);
+    }
+
+    fn residual_of(&mut self, px: usize, nb: usize) -> Option<&mut [f32]> {
+        self.residual
+            .as_deref_mut()
+            .map(|r| &mut r[px * nb..(px + 1) * nb])
+    }
+}
+
+/// z = Qᵀy (D values) with four interleaved accumulator sets to hide the multiply-add
+/// latency.
+#[inline(always)]
+fn whiten<T: Real, const D: usize, const FUSED: bool>(y: &[f32], qt: &[T]) -> [T; D] {
+    let mut acc = [[T::zero(); D]; 4];
     let mut bands = y.chunks_exact(4);
-    let mut rows = et.chunks_exact(4 * MM);
+    let mut rows = qt.chunks_exact(4 * D);
     for (yy, rr) in (&mut bands).zip(&mut rows) {
         for k in 0..4 {
-            let row = &rr[k * MM..(k + 1) * MM];
-            for j in 0..MM {
-                acc[k][j] += row[j] * yy[k];
+            let yk = T::from_f32(yy[k]);
+            let row: &[T; D] = rr[k * D..(k + 1) * D].try_into().expect("D values");
+            for j in 0..D {
+                acc[k][j] = madd::<T, FUSED>(row[j], yk, acc[k][j]);
             }
         }
     }
-    let tail = bands.remainder();
-    let rest = &et[et.len() - tail.len() * MM..];
-    for (k, yv) in tail.iter().enumerate() {
-        for j in 0..MM {
-            acc[0][j] += rest[k * MM + j] * yv;
+    for (yv, row) in bands
+        .remainder()
+        .iter()
+        .zip(rows.remainder().chunks_exact(D))
+    {
+        let yk = T::from_f32(*yv);
+        for j in 0..D {
+            acc[0][j] = madd::<T, FUSED>(row[j], yk, acc[0][j]);
         }
     }
-    for j in 0..MM {
-        out[j] = ((acc[0][j] + acc[1][j]) + (acc[2][j] + acc[3][j])) as f64;
+    let mut z = [T::zero(); D];
+    for j in 0..D {
+        z[j] = (acc[0][j] + acc[1][j]) + (acc[2][j] + acc[3][j]);
+    }
+    z
+}
+
+/// RSS of the direct residual r = y − E a (no cancellation): r is built in `scratch` one
+/// material at a time (a multiply-add over the bands, which vectorises along them), then
+/// squared into eight lanes. Copies r to `res` when given. `ecol` holds E's material
+/// columns one after another.
+#[inline(always)]
+fn residual<T: Real, const D: usize, const FUSED: bool>(
+    y: &[f32],
+    a: &[T; D],
+    ecol: &[T],
+    scratch: &mut [T],
+    res: Option<&mut [f32]>,
+) -> f64 {
+    let nb = y.len();
+    let r = &mut scratch[..nb];
+    for (ri, yv) in r.iter_mut().zip(y) {
+        *ri = T::from_f32(*yv);
+    }
+    for (col, aj) in ecol.chunks_exact(nb).zip(a) {
+        let neg = -*aj;
+        for (ri, e) in r.iter_mut().zip(col) {
+            *ri = madd::<T, FUSED>(*e, neg, *ri);
+        }
+    }
+    let mut lanes = [T::zero(); 8];
+    let mut chunks = r.chunks_exact(8);
+    for c in &mut chunks {
+        for t in 0..8 {
+            lanes[t] = madd::<T, FUSED>(c[t], c[t], lanes[t]);
+        }
+    }
+    let mut rss = tree_sum(lanes).widen();
+    for v in chunks.remainder() {
+        rss += v.widen() * v.widen();
+    }
+    if let Some(out) = res {
+        for (o, v) in out.iter_mut().zip(r.iter()) {
+            *o = v.widen() as f32;
+        }
+    }
+    rss
+}
+
+/// Writes one solved pixel: renormalised abundances, standard errors, RMSE, active count;
+/// or marks it dark.
+#[inline(always)]
+fn finish<T: Real, const M: usize>(
+    plan: &Plan<T>,
+    a: &[T; M],
+    rss: f64,
+    passive: u32,
+    slots: &mut Slots,
+    px: usize,
+    counts: &mut Counts,
+) {
+    let mat = plan.mat;
+    let mut materials = *a;
+    if plan.model.shade {
+        materials[mat] = T::zero();
+    }
+    let sum = tree_sum(materials).widen();
+    if sum.is_nan() || sum < DARK_LIMIT {
+        counts.dark += 1;
+        slots.blank(px, plan.planes);
+        return;
+    }
+    let kk = positives(a).count_ones() as usize;
+    let nb = plan.bands as f64;
+    let sigma = match plan.opts.noise {
+        Some(n) => n,
+        None => (rss / (nb - kk as f64 + plan.sum_to_one).max(1.0)).sqrt(),
+    };
+    let sd = &plan.table.raw(passive)[2 * M * (plan.table.dims + 1)..][..M];
+    let inv = 1.0 / sum;
+    let (sigma_t, inv_t) = (
+        T::from(sigma).unwrap_or(T::nan()),
+        T::from(inv).unwrap_or(T::nan()),
+    );
+    let planes = plan.planes;
+    let out_ab = &mut slots.ab[px * planes..(px + 1) * planes];
+    let out_se = &mut slots.se[px * planes..(px + 1) * planes];
+    for j in 0..mat {
+        out_ab[j].write((a[j] * inv_t).widen() as f32);
+        out_se[j].write((sigma_t * sd[j] * inv_t).widen() as f32);
+    }
+    if plan.opts.report_shade {
+        let (shade, shade_se) = if plan.model.shade {
+            (a[mat].widen(), sigma * sd[mat].widen())
+        } else {
+            (1.0 - sum, f64::NAN)
+        };
+        out_ab[mat].write(shade as f32);
+        out_se[mat].write(shade_se as f32);
+    }
+    slots.rm[px].write((rss / nb).sqrt() as f32);
+    slots.ac[px] = kk as u8;
+    slots.um[px] = true;
+    counts.unmixed += 1;
+}
+
+/// Whether pixel `y` is skipped before solving (no data, or zero in every band); counts
+/// it and blanks its slots.
+#[inline(always)]
+fn skipped(
+    y: &[f32],
+    valid: bool,
+    slots: &mut Slots,
+    px: usize,
+    planes: usize,
+    counts: &mut Counts,
+) -> bool {
+    if !valid {
+        counts.nodata += 1;
+    } else if y.iter().all(|v| *v == 0.0) {
+        counts.zero_signal += 1;
+    } else {
+        return false;
+    }
+    slots.blank(px, planes);
+    true
+}
+
+/// Pixels per block of the direct path.
+const BLOCK: usize = 32;
+
+/// Marks a skipped pixel in [`Block::flips`].
+const SKIP: u32 = u32::MAX;
+
+/// One block of pixels in flight on the direct path.
+struct Block<'a, T, const M: usize, const D: usize> {
+    /// The block's spectra (pixel-major) and validity.
+    y: &'a [f32],
+    ok: &'a [bool],
+    /// The first pixel's index in the task.
+    px0: usize,
+    z: [[T; D]; BLOCK],
+    a: [[T; M]; BLOCK],
+    /// The full set's violators, or [`SKIP`].
+    flips: [u32; BLOCK],
+    passive: [u32; BLOCK],
+    /// One spectrum's worth of working space.
+    scratch: Vec<T>,
+}
+
+/// Runs one pass in the variant `FUSED` names.
+macro_rules! run_pass {
+    ($fused:ident, $plain:ident, $avx2:ident, $($arg:expr),*) => {{
+        #[cfg(target_arch = "x86_64")]
+        if $fused {
+            // SAFETY: FUSED kernels are chosen only after run-time detection of AVX2 and
+            // FMA (`rows_kernel`).
+            unsafe { $avx2($($arg),*) }
+        } else {
+            $plain($($arg),*)
+        }
+        #[cfg(not(target_arch = "x86_64"))]
+        $plain($($arg),*)
+    }};
+}
+
+/// Pass 1: skip tests, whitening and the full-set step, branch-free per pixel.
+#[inline(always)]
+fn pass_whiten<T: Real, const M: usize, const D: usize, const FUSED: bool>(
+    plan: &Plan<T>,
+    blk: &mut Block<T, M, D>,
+    slots: &mut Slots,
+    counts: &mut Counts,
+) {
+    let nb = plan.bands;
+    for (i, (y, &ok)) in blk.y.chunks_exact(nb).zip(blk.ok).enumerate() {
+        if skipped(y, ok, slots, blk.px0 + i, plan.planes, counts) {
+            blk.flips[i] = SKIP;
+            continue;
+        }
+        blk.z[i] = run_pass!(FUSED, whiten_plain, whiten_avx2, y, &plan.qt);
+        (blk.a[i], blk.flips[i]) =
+            full_step::<T, M, D, FUSED>(plan.table, &blk.z[i], plan.full, plan.non_negative);
     }
 }
 
-/// Eᵀy in f32 for any member count.
-fn ety_any(y: &[f32], et: &[f32], out: &mut [f64]) {
-    let mat = et.len() / y.len().max(1);
-    let mut acc = vec![0f32; mat];
-    for (band, &yv) in y.iter().enumerate() {
-        for (a, e) in acc.iter_mut().zip(&et[band * mat..(band + 1) * mat]) {
-            *a += e * yv;
+/// Pass 2: pivoting, for the pixels whose full set is not optimal.
+#[inline(always)]
+fn pass_pivot<T: Real, const M: usize, const D: usize, const FUSED: bool>(
+    plan: &Plan<T>,
+    blk: &mut Block<T, M, D>,
+    _slots: &mut Slots,
+    counts: &mut Counts,
+) {
+    let full = plan.full;
+    for i in 0..blk.ok.len() {
+        match blk.flips[i] {
+            SKIP => {}
+            0 => {
+                blk.passive[i] = full;
+                if plan.non_negative {
+                    for v in &mut blk.a[i] {
+                        *v = v.max(T::zero());
+                    }
+                }
+            }
+            f => {
+                let o = pivot::<T, M, D, FUSED>(
+                    plan.table,
+                    &blk.z[i],
+                    full,
+                    full ^ f,
+                    true,
+                    &mut blk.a[i],
+                );
+                blk.passive[i] = o.passive;
+                counts.steps += o.steps as usize + 1;
+                counts.enumerated += o.enumerated as usize;
+            }
         }
-    }
-    for (o, a) in out.iter_mut().zip(&acc) {
-        *o = *a as f64;
     }
 }
 
-type EtyFn = fn(&[f32], &[f32], &mut [f64]);
+/// Pass 3: residuals and outputs.
+#[inline(always)]
+fn pass_finish<T: Real, const M: usize, const D: usize, const FUSED: bool>(
+    plan: &Plan<T>,
+    blk: &mut Block<T, M, D>,
+    slots: &mut Slots,
+    counts: &mut Counts,
+) {
+    let nb = plan.bands;
+    for (i, y) in blk.y.chunks_exact(nb).enumerate() {
+        if blk.flips[i] == SKIP {
+            continue;
+        }
+        let px = blk.px0 + i;
+        let res = slots.residual_of(px, nb);
+        let am: &[T; D] = blk.a[i][..D].try_into().expect("D materials");
+        let rss = run_pass!(
+            FUSED,
+            residual_plain,
+            residual_avx2,
+            y,
+            am,
+            &plan.ecol,
+            &mut blk.scratch,
+            res
+        );
+        finish(plan, &blk.a[i], rss, blk.passive[i], slots, px, counts);
+    }
+}
 
-fn ety_kernel(mat: usize) -> EtyFn {
+/// The whitening and the residual as functions of their own, portable and AVX2 + FMA:
+/// inlined into a pass, the vectoriser packed their accumulators two lanes wide (and
+/// spilled them); on their own they run a full register wide.
+#[inline(never)]
+fn whiten_plain<T: Real, const D: usize>(y: &[f32], qt: &[T]) -> [T; D] {
+    whiten::<T, D, false>(y, qt)
+}
+
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx2,fma")]
+#[inline(never)]
+unsafe fn whiten_avx2<T: Real, const D: usize>(y: &[f32], qt: &[T]) -> [T; D] {
+    whiten::<T, D, true>(y, qt)
+}
+
+#[inline(never)]
+fn residual_plain<T: Real, const D: usize>(
+    y: &[f32],
+    a: &[T; D],
+    ecol: &[T],
+    scratch: &mut [T],
+    res: Option<&mut [f32]>,
+) -> f64 {
+    residual::<T, D, false>(y, a, ecol, scratch, res)
+}
+
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx2,fma")]
+#[inline(never)]
+unsafe fn residual_avx2<T: Real, const D: usize>(
+    y: &[f32],
+    a: &[T; D],
+    ecol: &[T],
+    scratch: &mut [T],
+    res: Option<&mut [f32]>,
+) -> f64 {
+    residual::<T, D, true>(y, a, ecol, scratch, res)
+}
+
+/// Each pass as its own function, portable and AVX2 + FMA: kept apart, the compiler
+/// vectorises each pass at full width (inlined into one large function it chose
+/// two-lane vectors for the whitening and spilled its accumulators).
+macro_rules! pass_variants {
+    ($($body:ident => $plain:ident, $avx2:ident;)*) => {$(
+        #[inline(never)]
+        fn $plain<T: Real, const M: usize, const D: usize>(
+            plan: &Plan<T>,
+            blk: &mut Block<T, M, D>,
+            slots: &mut Slots,
+            counts: &mut Counts,
+        ) {
+            $body::<T, M, D, false>(plan, blk, slots, counts)
+        }
+
+        #[cfg(target_arch = "x86_64")]
+        #[target_feature(enable = "avx2,fma")]
+        #[inline(never)]
+        unsafe fn $avx2<T: Real, const M: usize, const D: usize>(
+            plan: &Plan<T>,
+            blk: &mut Block<T, M, D>,
+            slots: &mut Slots,
+            counts: &mut Counts,
+        ) {
+            $body::<T, M, D, true>(plan, blk, slots, counts)
+        }
+    )*};
+}
+
+pass_variants! {
+    pass_whiten => start_plain, start_avx2;
+    pass_pivot => pivot_plain, pivot_avx2;
+    pass_finish => finish_plain, finish_avx2;
+}
+
+/// A task's pixels on the direct path, a block of [`BLOCK`] pixels at a time in three
+/// passes: (1) whiten and take the full-set step for the whole block; (2) pivot the pixels
+/// that need it; (3) residuals and outputs. Separating the data-dependent pivoting from
+/// the arithmetic lets the processor overlap the arithmetic of neighbouring pixels.
+fn rows_direct<T: Real, const M: usize, const D: usize, const FUSED: bool>(
+    plan: &Plan<T>,
+    y: &[f32],
+    valid: &[bool],
+    slots: &mut Slots,
+    counts: &mut Counts,
+) {
+    let nb = plan.bands;
+    let mut blk = Block {
+        y: &[],
+        ok: &[],
+        px0: 0,
+        z: [[T::zero(); D]; BLOCK],
+        a: [[T::zero(); M]; BLOCK],
+        flips: [0; BLOCK],
+        passive: [0; BLOCK],
+        scratch: vec![T::zero(); nb],
+    };
+    for (k, (ys, ok)) in y.chunks(nb * BLOCK).zip(valid.chunks(BLOCK)).enumerate() {
+        (blk.y, blk.ok, blk.px0) = (ys, ok, k * BLOCK);
+        run_pass!(
+            FUSED,
+            start_plain,
+            start_avx2,
+            plan,
+            &mut blk,
+            slots,
+            counts
+        );
+        run_pass!(
+            FUSED,
+            pivot_plain,
+            pivot_avx2,
+            plan,
+            &mut blk,
+            slots,
+            counts
+        );
+        run_pass!(
+            FUSED,
+            finish_plain,
+            finish_avx2,
+            plan,
+            &mut blk,
+            slots,
+            counts
+        );
+    }
+}
+
+/// Subset mode (the slow path, in f64 whatever the run's precision): every allowed subset
+/// is solved and scored by BIC; the estimate averages the subsets' solutions with weights
+/// exp(−ΔBIC/2) (Bayesian model averaging), so members the bands cannot tell apart share
+/// the abundance instead of one being picked by the noise. Subset RSS = (yᵀy − zᵀz) +
+/// ‖z − R a‖² in f64.
+#[inline(always)]
+fn rows_subsets<T: Real, const M: usize, const D: usize, const FUSED: bool>(
+    plan: &Plan<T>,
+    y: &[f32],
+    valid: &[bool],
+    slots: &mut Slots,
+    counts: &mut Counts,
+) {
+    let model = plan.model;
+    let nb = plan.bands;
+    let n = nb as f64;
+    let q = model.q.as_slice().expect("standard layout");
+    let r = model.r.as_slice().expect("standard layout");
+    let mut scores: Vec<f64> = Vec::new();
+    let mut sols: Vec<[f64; M]> = Vec::new();
+    let mut scratch = vec![T::zero(); nb];
+    for (px, (y, &ok)) in y.chunks_exact(nb).zip(valid).enumerate() {
+        if skipped(y, ok, slots, px, plan.planes, counts) {
+            continue;
+        }
+        let mut z = [0.0f64; D];
+        let mut yy = 0.0;
+        for (yb, qrow) in y.iter().zip(q.chunks_exact(D)) {
+            let yb = *yb as f64;
+            yy += yb * yb;
+            for k in 0..D {
+                z[k] += qrow[k] * yb;
+            }
+        }
+        let out_of_span = (yy - z.iter().map(|v| v * v).sum::<f64>()).max(0.0);
+        scores.clear();
+        sols.clear();
+        let mut best_score = f64::INFINITY;
+        let mut best_out = (0u32, false, 0u16);
+        for (s, &allowed) in model.subsets.iter().enumerate() {
+            let mut a = [0.0f64; M];
+            let o = pivot::<f64, M, D, FUSED>(&model.table64, &z, allowed, allowed, true, &mut a);
+            let in_span: f64 = (0..D)
+                .map(|k| {
+                    let fit: f64 = (0..M).map(|j| r[k * M + j] * a[j]).sum();
+                    (z[k] - fit).powi(2)
+                })
+                .sum();
+            let rss = (out_of_span + in_span).max(1e-30);
+            let k = a.iter().filter(|v| **v > 0.0).count() as f64;
+            let score = n * (rss / n).ln() + k * n.ln();
+            scores.push(score);
+            sols.push(a);
+            if score < best_score {
+                best_score = score;
+                best_out = (o.passive, o.enumerated, s as u16 + 1);
+            }
+        }
+        let mut wsum = 0.0;
+        let mut mean = [0.0f64; M];
+        for (score, sol) in scores.iter().zip(&sols) {
+            let w = (-(score - best_score) / 2.0).exp();
+            wsum += w;
+            for j in 0..M {
+                mean[j] += w * sol[j];
+            }
+        }
+        let a: [T; M] = std::array::from_fn(|j| T::from(mean[j] / wsum).unwrap_or(T::nan()));
+        let (passive, enumerated, pick) = best_out;
+        counts.enumerated += enumerated as usize;
+        let res = slots.residual_of(px, nb);
+        let am: &[T; D] = a[..D].try_into().expect("D materials");
+        let rss = residual::<T, D, FUSED>(y, am, &plan.ecol, &mut scratch, res);
+        finish(plan, &a, rss, passive, slots, px, counts);
+        if let Some(s) = slots.subset.as_deref_mut() {
+            s[px] = if slots.um[px] { pick } else { 0 };
+        }
+    }
+}
+
+type RowsFn<T> = fn(&Plan<T>, &[f32], &[bool], &mut Slots, &mut Counts);
+
+#[inline(always)]
+fn rows_body<T: Real, const M: usize, const D: usize, const FUSED: bool>(
+    plan: &Plan<T>,
+    y: &[f32],
+    valid: &[bool],
+    slots: &mut Slots,
+    counts: &mut Counts,
+) {
+    if plan.model.subset_size.is_some() {
+        rows_subsets::<T, M, D, FUSED>(plan, y, valid, slots, counts)
+    } else {
+        rows_direct::<T, M, D, FUSED>(plan, y, valid, slots, counts)
+    }
+}
+
+fn rows_fixed<T: Real, const M: usize, const D: usize>(
+    plan: &Plan<T>,
+    y: &[f32],
+    valid: &[bool],
+    slots: &mut Slots,
+    counts: &mut Counts,
+) {
+    rows_body::<T, M, D, false>(plan, y, valid, slots, counts)
+}
+
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx2,fma")]
+unsafe fn rows_fixed_avx2<T: Real, const M: usize, const D: usize>(
+    plan: &Plan<T>,
+    y: &[f32],
+    valid: &[bool],
+    slots: &mut Slots,
+    counts: &mut Counts,
+) {
+    rows_body::<T, M, D, true>(plan, y, valid, slots, counts)
+}
+
+#[cfg(target_arch = "x86_64")]
+fn rows_fixed_x86<T: Real, const M: usize, const D: usize>(
+    plan: &Plan<T>,
+    y: &[f32],
+    valid: &[bool],
+    slots: &mut Slots,
+    counts: &mut Counts,
+) {
+    // SAFETY: chosen by `rows_kernel` only after run-time detection of AVX2 and FMA.
+    unsafe { rows_fixed_avx2::<T, M, D>(plan, y, valid, slots, counts) }
+}
+
+/// The kernel for M columns and D whitened dimensions (every model has M ≤ 12 and D = M
+/// or M − 1: the shade column adds no dimension), with AVX2 + FMA when `vector`.
+fn rows_kernel<T: Real>(m: usize, d: usize, vector: bool) -> RowsFn<T> {
     macro_rules! pick {
-        ($($n:literal)*) => {
-            match mat {
-                $($n => ety_fixed::<$n>,)*
-                _ => ety_any,
+        ($(($m:literal, $d:literal))*) => {
+            match (m, d, vector) {
+                $(
+                    #[cfg(target_arch = "x86_64")]
+                    ($m, $d, true) => rows_fixed_x86::<T, $m, $d>,
+                    ($m, $d, _) => rows_fixed::<T, $m, $d>,
+                )*
+                (m, d, _) => unreachable!("models have M ≤ 12 and D = M or M − 1, not {m}, {d}"),
             }
         };
     }
-    pick!(1 2 3 4 5 6 7 8 9 10 11 12)
+    pick!(
+        (1, 1)(2, 1)(2, 2)(3, 2)(3, 3)(4, 3)(4, 4)(5, 4)(5, 5)(6, 5)(6, 6)(7, 6)(7, 7)(8, 7)(8, 8)(
+            9, 8
+        )(9, 9)(10, 9)(10, 10)(11, 10)(11, 11)(12, 11)(12, 12)
+    )
 }
 
-/// The per-pixel arithmetic of one precision.
-struct Kernel {
-    /// E band-major (B × materials) for Eᵀy.
-    et32: Vec<f32>,
-    et64: Vec<f64>,
-    /// E column-major (materials × B) for the residual.
-    ecol32: Vec<f32>,
-    ecol64: Vec<f64>,
-    ety32: EtyFn,
-    f64_path: bool,
-    /// Material columns (members and groups; shade excluded).
-    mat: usize,
-}
-
-impl Kernel {
-    fn new(model: &Model, f64_path: bool) -> Kernel {
-        let (nb, mat) = (model.bands(), model.material_columns());
-        let e = &model.e;
-        let et64: Vec<f64> = (0..nb)
-            .flat_map(|b| (0..mat).map(move |j| e[(b, j)]))
-            .collect();
-        let ecol64: Vec<f64> = (0..mat)
-            .flat_map(|j| (0..nb).map(move |b| e[(b, j)]))
-            .collect();
-        Kernel {
-            et32: et64.iter().map(|v| *v as f32).collect(),
-            ecol32: ecol64.iter().map(|v| *v as f32).collect(),
-            et64,
-            ecol64,
-            ety32: ety_kernel(mat),
-            f64_path,
-            mat,
-        }
-    }
-
-    /// b = Eᵀy over the materials (the shade entry stays 0).
-    #[inline]
-    fn ety(&self, y: &[f32], b: &mut [f64]) {
-        let mat = self.mat;
-        if self.f64_path {
-            // f32 × f32 products are exact in f64: this is Eᵀy of the f32 inputs.
-            for v in b[..mat].iter_mut() {
-                *v = 0.0;
-            }
-            for (band, &yv) in y.iter().enumerate() {
-                let yv = yv as f64;
-                for (bj, e) in b[..mat]
-                    .iter_mut()
-                    .zip(&self.et64[band * mat..(band + 1) * mat])
-                {
-                    *bj += e * yv;
-                }
-            }
-        } else {
-            (self.ety32)(y, &self.et32, &mut b[..mat]);
-        }
-    }
-
-    /// RSS of the direct residual y − E a (accumulated in f64); fills `res` when given.
-    #[inline]
-    fn rss(
-        &self,
-        y: &[f32],
-        a: &[f64],
-        fit32: &mut [f32],
-        fit64: &mut [f64],
-        res: Option<&mut Vec<f32>>,
-    ) -> f64 {
-        let nb = y.len();
-        let mut rss = 0.0f64;
-        if self.f64_path {
-            fit64.iter_mut().for_each(|v| *v = 0.0);
-            for (col, &aj) in self.ecol64.chunks_exact(nb).zip(a) {
-                for (f, e) in fit64.iter_mut().zip(col) {
-                    *f += e * aj;
-                }
-            }
-            for (f, &yv) in fit64.iter_mut().zip(y) {
-                let d = yv as f64 - *f;
-                *f = d;
-                rss += d * d;
-            }
-            if let Some(res) = res {
-                res.extend(fit64.iter().map(|d| *d as f32));
-            }
-        } else {
-            // Eight bands at a time: the fit stays in registers while the members are
-            // added, then the squared residuals go into eight f32 lanes (positive terms, no
-            // cancellation — it is the Gram form yᵀy − 2aᵀb + aᵀGa that would need f64).
-            let mat = self.mat;
-            let mut a32 = [0f32; 16];
-            for (d, s) in a32.iter_mut().zip(&a[..mat]) {
-                *d = *s as f32;
-            }
-            let mut lanes = [0f32; 8];
-            let full = nb / 8 * 8;
-            for k0 in (0..full).step_by(8) {
-                let mut acc = [0f32; 8];
-                for (j, aj) in a32[..mat].iter().enumerate() {
-                    let col: &[f32; 8] = self.ecol32[j * nb + k0..j * nb + k0 + 8]
-                        .try_into()
-                        .expect("eight bands");
-                    for t in 0..8 {
-                        acc[t] += col[t] * aj;
-                    }
-                }
-                let yy: &[f32; 8] = y[k0..k0 + 8].try_into().expect("eight bands");
-                for t in 0..8 {
-                    let d = yy[t] - acc[t];
-                    fit32[k0 + t] = d;
-                    lanes[t] += d * d;
-                }
-            }
-            for k in full..nb {
-                let f: f32 = (0..mat).map(|j| self.ecol32[j * nb + k] * a32[j]).sum();
-                let d = y[k] - f;
-                fit32[k] = d;
-                lanes[0] += d * d;
-            }
-            rss = lanes.iter().map(|v| *v as f64).sum();
-            if let Some(res) = res {
-                res.extend_from_slice(fit32);
-            }
-        }
-        rss
-    }
+/// A vector of `n` values that the parallel pass fills completely.
+fn uninit(n: usize) -> Vec<f32> {
+    Vec::with_capacity(n)
 }
 
 /// Unmixes every pixel of `cube`. `progress` is called with the number of rows finished.
@@ -274,237 +726,112 @@ pub fn unmix<T: Real>(
     opts: &RunOptions,
     progress: &(dyn Fn(usize) + Sync),
 ) -> UnmixOutput {
+    unmix_with::<T>(cube, model, opts, progress, avx2_available())
+}
+
+/// [`unmix`] with the kernel chosen by the caller: the AVX2 + FMA instances when `vector`
+/// (callers must have checked [`avx2_available`]; it is checked again here), the portable
+/// ones otherwise. Tests hold the two to each other.
+pub fn unmix_with<T: Real>(
+    cube: &Cube,
+    model: &Model,
+    opts: &RunOptions,
+    progress: &(dyn Fn(usize) + Sync),
+    vector: bool,
+) -> UnmixOutput {
     let (rows, cols, nb) = cube.data.dim();
-    let m = model.columns();
-    let mat = model.material_columns();
-    let planes = mat + opts.report_shade as usize;
-    let mut ids: Vec<String> = model.ids[..mat].to_vec();
+    let plan = Plan::<T>::new(model, opts);
+    let planes = plan.planes;
+    let mut ids: Vec<String> = model.ids[..plan.mat].to_vec();
     if opts.report_shade {
         ids.push("shade".into());
     }
-    let mut abundance = Array3::<f32>::from_elem((rows, cols, planes), f32::NAN);
-    let mut stderr = Array3::<f32>::from_elem((rows, cols, planes), f32::NAN);
-    let mut rmse = Array2::<f32>::from_elem((rows, cols), f32::NAN);
+    let npx = rows * cols;
+    let (mut ab, mut se, mut rm) = (uninit(npx * planes), uninit(npx * planes), uninit(npx));
     let mut active = Array2::<u8>::zeros((rows, cols));
+    let mut unmixed = Array2::<bool>::from_elem((rows, cols), false);
     let mut subset = model
         .subset_size
         .map(|_| Array2::<u16>::zeros((rows, cols)));
     let mut residual = opts
         .residuals
         .then(|| Array3::<f32>::from_elem((rows, cols, nb), f32::NAN));
-    let mut unmixed = Array2::<bool>::from_elem((rows, cols), false);
-
-    let kernel = Kernel::new(model, std::mem::size_of::<T>() == 8);
-    let g = model.e.t().dot(&model.e);
-    let table = &model.table64;
-    let full = model.full_mask();
-    let nonneg = model.solver.non_negative();
-    let fixed = if nonneg {
-        super::solve::fixed_solver(m, super::solve::avx2_available())
-    } else {
-        None
-    };
-    let solve = |b: &[f64], allowed: u32, start: u32, a: &mut [f64], work: &mut [f64]| match fixed {
-        Some(f) => f(table, b, allowed, start, a, work),
-        None => solve_pixel(table, b, allowed, start, nonneg, a, work),
-    };
-    let sum_to_one = model.solver.sum_to_one() as u8 as f64;
+    let y = cube
+        .data
+        .as_slice()
+        .expect("cube data are in standard layout");
+    let valid = cube.valid.as_slice().expect("standard layout");
+    let kernel = rows_kernel::<T>(model.columns(), model.q.ncols(), vector && avx2_available());
     let done = AtomicUsize::new(0);
 
-    // Subset picks and residuals are gathered per task and placed after the pass.
-    let chunks: Vec<Counts> = abundance
-        .axis_chunks_iter_mut(Axis(0), ROWS_PER_TASK)
-        .into_par_iter()
-        .zip(stderr.axis_chunks_iter_mut(Axis(0), ROWS_PER_TASK))
-        .zip(rmse.axis_chunks_iter_mut(Axis(0), ROWS_PER_TASK))
-        .zip(active.axis_chunks_iter_mut(Axis(0), ROWS_PER_TASK))
-        .zip(unmixed.axis_chunks_iter_mut(Axis(0), ROWS_PER_TASK))
-        .enumerate()
-        .map(|(k, ((((mut ab, mut se), mut rm), mut ac), mut um))| {
-            let mut counts = Counts::default();
-            let mut b = vec![0.0f64; m];
-            let mut a = vec![0.0f64; m];
-            let mut work = vec![0.0f64; 2 * m];
-            let mut best = vec![0.0f64; m];
-            let mut fit32 = vec![0.0f32; nb];
-            let mut fit64 = vec![0.0f64; nb];
-            let mut scores: Vec<f64> = Vec::new();
-            let mut sols: Vec<f64> = Vec::new();
-            let r0 = k * ROWS_PER_TASK;
-            let mut picks: Vec<(usize, usize, u16)> = Vec::new();
-            let mut resid: Vec<(usize, usize, Vec<f32>)> = Vec::new();
-            let ab = ab
-                .as_slice_mut()
-                .expect("chunks of standard arrays are contiguous");
-            let se = se.as_slice_mut().expect("contiguous");
-            let rm = rm.as_slice_mut().expect("contiguous");
-            let ac = ac.as_slice_mut().expect("contiguous");
-            let um = um.as_slice_mut().expect("contiguous");
-            let task_rows = rm.len() / cols;
-            for dr in 0..task_rows {
-                let r = r0 + dr;
-                let yrow = cube.data.index_axis(Axis(0), r);
-                let yrow = yrow.as_slice().expect("cube rows are contiguous");
-                let vrow = cube.valid.row(r);
-                let mut start = full;
-                for c in 0..cols {
-                    if !vrow[c] {
-                        counts.nodata += 1;
-                        continue;
-                    }
-                    let y = &yrow[c * nb..(c + 1) * nb];
-                    if y.iter().all(|v| *v == 0.0) {
-                        counts.zero_signal += 1;
-                        continue;
-                    }
-                    kernel.ety(y, &mut b);
-                    let (passive, enumerated, pick) = match model.subset_size {
-                        None => {
-                            let o = solve(&b, full, start, &mut a, &mut work);
-                            start = o.passive;
-                            counts.steps += o.steps as usize;
-                            (o.passive, o.enumerated, 0u16)
-                        }
-                        Some(_) => {
-                            // Every allowed subset, scored by BIC; the estimate averages
-                            // the subsets' solutions with weights exp(−ΔBIC/2) (Bayesian
-                            // model averaging), so members the bands cannot tell apart
-                            // share the abundance instead of one being picked by the noise.
-                            let yy: f64 = y.iter().map(|v| (*v as f64).powi(2)).sum();
-                            let n = nb as f64;
-                            scores.clear();
-                            sols.clear();
-                            let mut best_score = f64::INFINITY;
-                            let mut best_out = (0u32, false, 0u16);
-                            for (s, &allowed) in model.subsets.iter().enumerate() {
-                                let o = solve(&b, allowed, allowed, &mut a, &mut work);
-                                let rss = gram_rss(&g, &a, &b, yy).max(1e-30);
-                                let k = a.iter().filter(|v| **v > 0.0).count() as f64;
-                                let score = n * (rss / n).ln() + k * n.ln();
-                                scores.push(score);
-                                sols.extend_from_slice(&a);
-                                if score < best_score {
-                                    best_score = score;
-                                    best_out = (o.passive, o.enumerated, s as u16 + 1);
-                                }
-                            }
-                            let mut wsum = 0.0;
-                            best.iter_mut().for_each(|v| *v = 0.0);
-                            for (s, score) in scores.iter().enumerate() {
-                                let w = (-(score - best_score) / 2.0).exp();
-                                wsum += w;
-                                for (acc, v) in best.iter_mut().zip(&sols[s * m..(s + 1) * m]) {
-                                    *acc += w * v;
-                                }
-                            }
-                            for (dst, v) in a.iter_mut().zip(&best) {
-                                *dst = v / wsum;
-                            }
-                            best_out
-                        }
-                    };
-                    if enumerated {
-                        counts.enumerated += 1;
-                    }
-                    let mut res = opts.residuals.then(|| Vec::with_capacity(nb));
-                    let rss = kernel.rss(y, &a, &mut fit32, &mut fit64, res.as_mut());
-                    let sum: f64 = a[..mat].iter().sum();
-                    if sum.is_nan() || sum < DARK_LIMIT {
-                        counts.dark += 1;
-                        continue;
-                    }
-                    let kk = a.iter().filter(|v| **v > 0.0).count();
-                    let dof = (nb as f64 - kk as f64 + sum_to_one).max(1.0);
-                    let sigma2 = match opts.noise {
-                        Some(n) => n * n,
-                        None => rss / dof,
-                    };
-                    let sd = &table[passive as usize]
-                        .as_ref()
-                        .expect("a solved passive set has an entry")
-                        .sd;
-                    let sigma = sigma2.sqrt();
-                    let px = dr * cols + c;
-                    let out_ab = &mut ab[px * planes..(px + 1) * planes];
-                    let out_se = &mut se[px * planes..(px + 1) * planes];
-                    let inv = 1.0 / sum;
-                    for j in 0..mat {
-                        out_ab[j] = (a[j] * inv) as f32;
-                        out_se[j] = (sigma * sd[j] * inv) as f32;
-                    }
-                    if opts.report_shade {
-                        let (shade, shade_se) = if model.shade {
-                            (a[mat], sigma * sd[mat])
-                        } else {
-                            (1.0 - sum, f64::NAN)
-                        };
-                        out_ab[mat] = shade as f32;
-                        out_se[mat] = shade_se as f32;
-                    }
-                    rm[px] = (rss / nb as f64).sqrt() as f32;
-                    ac[px] = kk as u8;
-                    um[px] = true;
-                    counts.unmixed += 1;
-                    if pick > 0 {
-                        picks.push((r, c, pick));
-                    }
-                    if let Some(res) = res {
-                        resid.push((r, c, res));
-                    }
-                }
-            }
-            progress(done.fetch_add(task_rows, Ordering::Relaxed) + task_rows);
-            (counts, picks, resid)
-        })
-        .collect::<Vec<_>>()
-        .into_iter()
-        .map(|(counts, picks, resid)| {
-            if let Some(s) = subset.as_mut() {
-                for (r, c, p) in picks {
-                    s[(r, c)] = p;
-                }
-            }
-            if let Some(res) = residual.as_mut() {
-                for (r, c, v) in resid {
-                    for (band, x) in v.into_iter().enumerate() {
-                        res[(r, c, band)] = x;
-                    }
-                }
-            }
-            counts
+    let task = ROWS_PER_TASK * cols;
+    let chunks = |n: usize| n.max(1) * task;
+    let mut tasks: Vec<Slots> = ab.spare_capacity_mut()[..npx * planes]
+        .chunks_mut(chunks(planes))
+        .zip(se.spare_capacity_mut()[..npx * planes].chunks_mut(chunks(planes)))
+        .zip(rm.spare_capacity_mut()[..npx].chunks_mut(task))
+        .zip(active.as_slice_mut().expect("standard").chunks_mut(task))
+        .zip(unmixed.as_slice_mut().expect("standard").chunks_mut(task))
+        .map(|((((ab, se), rm), ac), um)| Slots {
+            ab,
+            se,
+            rm,
+            ac,
+            um,
+            subset: None,
+            residual: None,
         })
         .collect();
-    let counts = chunks.iter().fold(Counts::default(), |t, c| Counts {
-        unmixed: t.unmixed + c.unmixed,
-        nodata: t.nodata + c.nodata,
-        zero_signal: t.zero_signal + c.zero_signal,
-        dark: t.dark + c.dark,
-        enumerated: t.enumerated + c.enumerated,
-        steps: t.steps + c.steps,
-    });
+    if let Some(s) = subset.as_mut() {
+        let s = s.as_slice_mut().expect("standard");
+        for (t, chunk) in tasks.iter_mut().zip(s.chunks_mut(task)) {
+            t.subset = Some(chunk);
+        }
+    }
+    if let Some(r) = residual.as_mut() {
+        let r = r.as_slice_mut().expect("standard");
+        for (t, chunk) in tasks.iter_mut().zip(r.chunks_mut(task * nb)) {
+            t.residual = Some(chunk);
+        }
+    }
+    let counts = tasks
+        .into_par_iter()
+        .enumerate()
+        .map(|(k, mut slots)| {
+            let mut counts = Counts::default();
+            let px0 = k * task;
+            let n = slots.rm.len();
+            let (y, valid) = (&y[px0 * nb..(px0 + n) * nb], &valid[px0..px0 + n]);
+            kernel(&plan, y, valid, &mut slots, &mut counts);
+            let task_rows = n / cols.max(1);
+            progress(done.fetch_add(task_rows, Ordering::Relaxed) + task_rows);
+            counts
+        })
+        .reduce(Counts::default, |t, c| Counts {
+            unmixed: t.unmixed + c.unmixed,
+            nodata: t.nodata + c.nodata,
+            zero_signal: t.zero_signal + c.zero_signal,
+            dark: t.dark + c.dark,
+            enumerated: t.enumerated + c.enumerated,
+            steps: t.steps + c.steps,
+        });
+    // SAFETY: the tasks cover every pixel exactly once, and every pixel writes all its
+    // slots (`finish` or `blank`), so the first `len` values are initialised.
+    unsafe {
+        ab.set_len(npx * planes);
+        se.set_len(npx * planes);
+        rm.set_len(npx);
+    }
+    let shape3 = (rows, cols, planes);
     UnmixOutput {
         ids,
-        abundance,
-        stderr,
-        rmse,
+        abundance: Array3::from_shape_vec(shape3, ab).expect("sized above"),
+        stderr: Array3::from_shape_vec(shape3, se).expect("sized above"),
+        rmse: Array2::from_shape_vec((rows, cols), rm).expect("sized above"),
         active,
         subset,
         residual,
         unmixed,
         counts,
     }
-}
-
-/// RSS by the Gram form in f64: yᵀy − 2aᵀb + aᵀGa (for ranking subsets).
-fn gram_rss(g: &Array2<f64>, a: &[f64], b: &[f64], yy: f64) -> f64 {
-    let m = a.len();
-    let mut quad = 0.0;
-    let mut lin = 0.0;
-    for i in 0..m {
-        lin += a[i] * b[i];
-        for j in 0..m {
-            quad += a[i] * g[(i, j)] * a[j];
-        }
-    }
-    yy - 2.0 * lin + quad
 }
