@@ -1,7 +1,7 @@
 //! The parallel driver: unmixes a cube block of rows by block of rows, so no per-band
-//! intermediate (Eᵀy, residuals) is ever held for the whole cube.
+//! intermediate (whitened values, residuals) is ever held for the whole cube.
 //!
-//! Per pixel: b = Eᵀy, the active-set solve (or, in subset mode, one solve per allowed
+//! Per pixel: z = Qᵀy (the whitened spectrum, see [`super::model`]), the active-set solve (or, in subset mode, one solve per allowed
 //! subset, keeping the lowest BIC = B ln(RSS/B) + k ln B, with k the number of non-zero
 //! abundances — the stated penalty against over-fitting; Roberts et al. 1998 for the
 //! per-pixel subsets), the residual r = y − E a computed directly (no cancellation), RMSE
@@ -16,8 +16,8 @@
 //! signal in every band, and pixels whose material sum is below [`DARK_LIMIT`] (almost all
 //! shade: night side, deep shadow), whose composition is undefined.
 //!
-//! Results do not depend on the thread count: rows are the unit of work and each row's
-//! pixels are solved in order.
+//! Results do not depend on the thread count or on neighbouring pixels: every pixel's
+//! pivoting starts from the full set.
 
 use std::mem::MaybeUninit;
 use std::sync::atomic::{AtomicUsize, Ordering};
@@ -348,7 +348,7 @@ macro_rules! run_pass {
 
 /// Pass 1: skip tests, whitening and the full-set step, branch-free per pixel.
 #[inline(always)]
-fn pass_whiten<T: Real, const M: usize, const D: usize, const FUSED: bool>(
+fn pass_start<T: Real, const M: usize, const D: usize, const FUSED: bool>(
     plan: &Plan<T>,
     blk: &mut Block<T, M, D>,
     slots: &mut Slots,
@@ -502,7 +502,7 @@ macro_rules! pass_variants {
 }
 
 pass_variants! {
-    pass_whiten => start_plain, start_avx2;
+    pass_start => start_plain, start_avx2;
     pass_pivot => pivot_plain, pivot_avx2;
     pass_finish => finish_plain, finish_avx2;
 }
