@@ -13,6 +13,7 @@ pub mod demo;
 pub mod fits;
 pub mod library;
 pub mod output;
+pub mod photometry;
 pub mod pipeline;
 pub mod recipe;
 pub mod render;

@@ -76,13 +76,28 @@ pub fn prepare(
         .map_err(|e| anyhow::anyhow!("{}: {e}", path.display()))?;
     cube.select_bands(&kept);
     let mut warnings = Vec::new();
-    if cube.info.quantity != Quantity::ReflectanceFactor {
+    let law = recipe
+        .photometry()
+        .map_err(|e| anyhow::anyhow!("recipe: {e}"))?;
+    if cube.info.quantity != Quantity::ReflectanceFactor && law.is_none() {
         warnings.push(format!(
             "{}: the cube declares its quantity as {}; unmixing assumes reflectance factor \
-             (photometric normalisation is not yet available)",
+             (--photometry lambert divides I/F by cos i)",
             path.display(),
             cube.info.quantity.as_str()
         ));
+    }
+    if let Some(law) = law {
+        let masked = crate::photometry::normalise(&mut cube, law)
+            .map_err(|e| anyhow::anyhow!("{}: {e}", path.display()))?;
+        if masked > 0 {
+            warnings.push(format!(
+                "photometry {}: {masked} pixels with a photometric factor below {} (grazing \
+                 sun or night side) masked as no data",
+                law.name(),
+                crate::photometry::MIN_FACTOR
+            ));
+        }
     }
     let resampled = resample(&library, &cube.info.bands)
         .with_context(|| format!("{}: resampling the library to its bands", path.display()))?;

@@ -16,6 +16,7 @@
 //! exclude_bands = []
 //! residuals = false
 //! precision = "f32"         # f32 (fast) or f64 (reference)
+//! photometry = "none"       # none, lambert or lommel-seeliger (needs the backplanes)
 //! # map only:
 //! units = "auto"            # or K
 //! max_units = 10
@@ -57,6 +58,8 @@ pub struct Recipe {
     pub exclude_bands: Vec<usize>,
     pub residuals: bool,
     pub precision: String,
+    /// "none", or the photometric law the cube is divided by before unmixing.
+    pub photometry: String,
     /// `map` only: the number of units, or "auto".
     pub units: Count,
     /// `map` only: the largest K tried by "auto".
@@ -119,6 +122,7 @@ impl Default for Recipe {
             exclude_bands: Vec::new(),
             residuals: false,
             precision: "f32".into(),
+            photometry: "none".into(),
             units: Count::Word("auto".into()),
             max_units: crate::units::DEFAULT_MAX_UNITS,
             sample: Count::N(crate::units::DEFAULT_SAMPLE),
@@ -172,7 +176,18 @@ impl Recipe {
                 self.precision
             ));
         }
+        self.photometry()?;
         Ok(p)
+    }
+
+    /// The photometric law to normalise by, if any.
+    pub fn photometry(&self) -> Result<Option<crate::photometry::Law>, String> {
+        match self.photometry.as_str() {
+            "none" => Ok(None),
+            s => crate::photometry::Law::parse(s).map(Some).ok_or_else(|| {
+                format!("photometry `{s}`: expected none, lambert or lommel-seeliger")
+            }),
+        }
     }
 
     /// The checked units parameters (for `map`).
@@ -261,5 +276,7 @@ mod tests {
         assert!(toml::from_str::<Recipe>("solvr = \"fcls\"").is_err());
         let r: Recipe = toml::from_str("solver = \"magic\"").unwrap();
         assert!(r.unmix_params().unwrap_err().contains("magic"));
+        let r: Recipe = toml::from_str("photometry = \"hapke\"").unwrap();
+        assert!(r.unmix_params().unwrap_err().contains("photometry `hapke`"));
     }
 }

@@ -69,9 +69,14 @@ pub struct UnmixArgs {
     /// Also write residual.fits, the per-band residual y − Ea.
     #[arg(long)]
     pub residuals: bool,
-    /// Arithmetic of Eᵀy: f32 (fast, default) or f64 (reference).
+    /// Arithmetic of the solver: f32 (fast, default) or f64 (reference).
     #[arg(long, value_name = "P", value_parser = ["f32", "f64"])]
     pub precision: Option<String>,
+    /// Divide each spectrum by a photometric law of its viewing geometry first (needs the
+    /// cube's backplanes): lambert (cos i) or lommel-seeliger (2 cos i / (cos i + cos e)).
+    /// Default none.
+    #[arg(long, value_name = "LAW", value_parser = ["none", "lambert", "lommel-seeliger"])]
+    pub photometry: Option<String>,
     #[command(flatten)]
     pub select: BandArgs,
     /// FITS only: the HDU that holds the cube, by EXTNAME or index.
@@ -123,6 +128,9 @@ impl UnmixArgs {
         }
         if let Some(p) = &self.precision {
             r.precision = p.clone();
+        }
+        if let Some(p) = &self.photometry {
+            r.photometry = p.clone();
         }
         if let Some((a, b)) = self.select.range() {
             r.range_um = Some([a, b]);

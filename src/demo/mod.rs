@@ -46,32 +46,7 @@ pub enum SceneKind {
     Tile,
 }
 
-/// The photometric law.
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
-pub enum Law {
-    Lambert,
-    LommelSeeliger,
-}
-
-impl Law {
-    pub fn name(self) -> &'static str {
-        match self {
-            Law::Lambert => "lambert",
-            Law::LommelSeeliger => "lommel-seeliger",
-        }
-    }
-
-    /// The photometric factor, 1 at i = e = 0; 0 on the night side.
-    pub fn factor(self, mu0: f64, mu: f64) -> f64 {
-        if mu0 <= 0.0 {
-            return 0.0;
-        }
-        match self {
-            Law::Lambert => mu0,
-            Law::LommelSeeliger => 2.0 * mu0 / (mu0 + mu.max(0.0)),
-        }
-    }
-}
+pub use crate::photometry::Law;
 
 /// Everything that decides a scene. Check with [`SceneParams::check`].
 #[derive(Debug, Clone, PartialEq)]

@@ -300,3 +300,39 @@ fn identical_members_of_different_classes_are_refused() {
     assert_eq!(run.status.code(), Some(2), "{err}");
     assert!(err.contains("twin-a — twin-b"), "{err}");
 }
+
+#[test]
+fn photometric_normalisation_is_recorded_and_needs_its_backplanes() {
+    let dir = tempfile::tempdir().unwrap();
+    // The imager globe has incidence and emission backplanes: Lambert normalisation runs,
+    // lands in the recipe, and masks the grazing-sun pixels it cannot normalise.
+    let out = dir.path().join("r");
+    let run = unmix(
+        &demo_cube("brimveil-globe-imager7.fits"),
+        &out,
+        &["--photometry", "lambert"],
+    );
+    assert!(run.status.success(), "{}", stderr(&run));
+    assert!(
+        stderr(&run).contains("photometric factor below"),
+        "{}",
+        stderr(&run)
+    );
+    let recipe = &json(&out.join("run.json"))["recipe"];
+    assert_eq!(recipe["photometry"], "lambert");
+    // A cube without backplanes is refused with the missing plane named, exit code 2.
+    let p = dir.path().join("flat.fits");
+    std::fs::write(&p, f32_fits([4, 3, 12], &[0.3f32; 4 * 3 * 12], &[])).unwrap();
+    let run = unmix(
+        &p,
+        &dir.path().join("r2"),
+        &["--photometry", "lommel-seeliger"],
+    );
+    assert_eq!(run.status.code(), Some(2), "{}", stderr(&run));
+    assert!(
+        stderr(&run).contains("no incidence backplane"),
+        "{}",
+        stderr(&run)
+    );
+    assert!(!dir.path().join("r2").join("run.json").exists());
+}
