@@ -11,6 +11,7 @@ use linfa_clustering::{KMeans, KMeansInit};
 use ndarray::Array2;
 use ndarray_npy::read_npy;
 use rand::SeedableRng;
+use thiomap::units::cluster::SquaredEuclidean;
 
 fn main() -> anyhow::Result<()> {
     let args: Vec<String> = std::env::args().skip(1).collect();
@@ -28,14 +29,18 @@ fn main() -> anyhow::Result<()> {
     let mut inertia = 0.0;
     for _ in 0..repeats.parse::<usize>()? {
         let t = Instant::now();
-        let model = KMeans::params_with_rng(c0.nrows(), rand_chacha::ChaCha8Rng::seed_from_u64(1))
-            .init_method(KMeansInit::Precomputed(c0.clone()))
-            .n_runs(1)
-            .max_n_iterations(iters)
-            // linfa refuses 0; the smallest positive tolerance stops only at strict convergence,
-            // as scikit-learn's tol = 0 does.
-            .tolerance(f64::MIN_POSITIVE)
-            .fit(&data)?;
+        let model = KMeans::params_with(
+            c0.nrows(),
+            rand_chacha::ChaCha8Rng::seed_from_u64(1),
+            SquaredEuclidean,
+        )
+        .init_method(KMeansInit::Precomputed(c0.clone()))
+        .n_runs(1)
+        .max_n_iterations(iters)
+        // linfa refuses 0; the smallest positive tolerance stops only at strict convergence,
+        // as scikit-learn's tol = 0 does.
+        .tolerance(f64::MIN_POSITIVE)
+        .fit(&data)?;
         times.push(t.elapsed().as_secs_f64());
         inertia = model.inertia();
     }
