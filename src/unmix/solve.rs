@@ -198,6 +198,16 @@ pub fn full_step<T: Real, const M: usize, const D: usize, const FUSED: bool>(
     full: u32,
     non_negative: bool,
 ) -> ([T; M], u32) {
+    if !table.has(full) {
+        // A singular full set (collinear members unmixed with --force): pivoting starts
+        // from the empty set and falls back to enumeration; without the sign constraints
+        // there is no solution.
+        return if non_negative {
+            ([T::zero(); M], full)
+        } else {
+            ([T::nan(); M], 0)
+        };
+    }
     let x = evaluate_fixed::<T, M, D, FUSED>(table.raw(full), z, 0);
     if !non_negative {
         return (x, 0);

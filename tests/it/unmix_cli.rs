@@ -299,6 +299,25 @@ fn identical_members_of_different_classes_are_refused() {
     let err = stderr(&run);
     assert_eq!(run.status.code(), Some(2), "{err}");
     assert!(err.contains("twin-a — twin-b"), "{err}");
+    // With --force the singular problem is still solved exactly (the active-set search
+    // falls back to enumeration): every pixel gets a composition, none is lost as dark.
+    let out = dir.path().join("forced");
+    let run = unmix(
+        &demo_cube("brimveil-tile-spectrometer24.fits"),
+        &out,
+        &[
+            "--library",
+            lib.to_str().unwrap(),
+            "--subset",
+            "off",
+            "--force",
+        ],
+    );
+    assert!(run.status.success(), "{}", stderr(&run));
+    let summary = json(&out.join("summary.json"));
+    assert_eq!(summary["masked_pixels"]["too_dark"], 0, "{summary}");
+    assert_eq!(summary["unmixed_pixels"], 9216, "{summary}");
+    assert_eq!(summary["enumerated_pixels"], 9216, "{summary}");
 }
 
 #[test]
