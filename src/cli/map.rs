@@ -120,13 +120,14 @@ pub fn run(args: Args) -> anyhow::Result<ExitCode> {
     let map = map.map_err(|e| e.error)?;
     eprintln!("mapped {} units into {}:", map.units.len(), a.out.display());
     for u in &map.units {
-        eprintln!(
-            "  {:>2}  {:<48} [{}] {:5.1} %",
-            u.unit,
-            u.label,
-            u.class,
-            100.0 * u.area_fraction
-        );
+        let pct = 100.0 * u.area_fraction;
+        // A unit too small to show at one decimal (a few hot-spot pixels) still exists.
+        let area = if pct > 0.0 && pct < 0.05 {
+            " <0.1".to_string()
+        } else {
+            format!("{pct:5.1}")
+        };
+        eprintln!("  {:>2}  {:<48} [{}] {area} %", u.unit, u.label, u.class);
     }
     Ok(ExitCode::SUCCESS)
 }
