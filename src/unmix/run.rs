@@ -716,7 +716,36 @@ fn rows_kernel<T: Real>(m: usize, d: usize, vector: bool) -> RowsFn<T> {
 
 /// A vector of `n` values that the parallel pass fills completely.
 fn uninit(n: usize) -> Vec<f32> {
-    Vec::with_capacity(n)
+    let mut v = Vec::with_capacity(n);
+    advise_huge_pages(v.spare_capacity_mut());
+    v
+}
+
+/// Asks Linux to back a large fresh buffer with transparent huge pages (as numpy does for
+/// its large arrays): its first writes then fault in 2 MiB at a time instead of 4 KiB,
+/// which was a tenth of the unmixing time on a 512 × 512 cube. Advisory only; a no-op
+/// elsewhere and for buffers under 4 MiB.
+fn advise_huge_pages<T>(buf: &mut [MaybeUninit<T>]) {
+    #[cfg(target_os = "linux")]
+    {
+        const HUGE: usize = 2 << 20;
+        let bytes = std::mem::size_of_val(buf);
+        if bytes < 2 * HUGE {
+            return;
+        }
+        let start = buf.as_mut_ptr() as usize;
+        let first = start.next_multiple_of(HUGE);
+        let end = (start + bytes) / HUGE * HUGE;
+        if end > first {
+            // SAFETY: the range lies inside memory this buffer owns; MADV_HUGEPAGE changes
+            // only how the kernel backs it, never its contents or validity.
+            unsafe {
+                libc::madvise(first as *mut libc::c_void, end - first, libc::MADV_HUGEPAGE);
+            }
+        }
+    }
+    #[cfg(not(target_os = "linux"))]
+    let _ = buf;
 }
 
 /// Unmixes every pixel of `cube`. `progress` is called with the number of rows finished.
