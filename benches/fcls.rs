@@ -7,7 +7,7 @@ use criterion::{criterion_group, criterion_main, Criterion};
 use ndarray::{Array2, Array3};
 use rand::{Rng, SeedableRng};
 use rand_chacha::ChaCha8Rng;
-use thiomap::cube::{Band, BandTable, Cube, Response};
+use thiomap::cube::{BandTable, Cube};
 use thiomap::unmix::{unmix, Model, RunOptions, Solver};
 
 const B: usize = 32;
@@ -69,15 +69,7 @@ fn problem(sparse: bool) -> (Model, Cube) {
         }
     }
     let model = Model::from_matrix(e, Solver::Fcls).expect("a well-posed problem");
-    let bands = BandTable::new(
-        (0..B)
-            .map(|i| Band {
-                centre_um: 0.4 + 0.05 * i as f64,
-                response: Response::Point,
-            })
-            .collect(),
-    )
-    .expect("increasing centres");
+    let bands = BandTable::evenly_spaced(B, 0.4, 0.05).expect("increasing centres");
     let cube = Cube::from_pixels(data, bands);
     (model, cube)
 }

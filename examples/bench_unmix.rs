@@ -9,7 +9,7 @@ use std::time::Instant;
 
 use ndarray::{Array2, Array3};
 use ndarray_npy::read_npy;
-use thiomap::cube::{Band, BandTable, Cube, Response};
+use thiomap::cube::{BandTable, Cube};
 use thiomap::unmix::{unmix, Model, RunOptions, Solver};
 
 fn main() -> anyhow::Result<()> {
@@ -26,14 +26,7 @@ fn main() -> anyhow::Result<()> {
     let (h, w, b) = y.dim();
     let m = e.ncols();
     let model = Model::from_matrix(e, Solver::Fcls)?;
-    let bands = BandTable::new(
-        (0..b)
-            .map(|i| Band {
-                centre_um: 0.4 + 0.05 * i as f64,
-                response: Response::Point,
-            })
-            .collect(),
-    )?;
+    let bands = BandTable::evenly_spaced(b, 0.4, 0.05)?;
     let cube = Cube::from_pixels(y, bands);
     let opts = RunOptions {
         report_shade: false,

@@ -113,7 +113,7 @@ pub fn normalise(cube: &mut Cube, law: Law) -> Result<usize, PhotometryError> {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::cube::{Band, BandTable, Response};
+    use crate::cube::BandTable;
     use ndarray::{Array2, Array3};
 
     fn cube_with(incidence: &[f32], emission: Option<&[f32]>, law: Law) -> Cube {
@@ -124,15 +124,7 @@ mod tests {
             let mu = emission.map_or(1.0, |e| (e[c] as f64).to_radians().cos());
             spectrum[b] * law.factor(mu0, mu) as f32
         });
-        let bands = BandTable::new(
-            (0..3)
-                .map(|i| Band {
-                    centre_um: 0.5 + 0.1 * i as f64,
-                    response: Response::Point,
-                })
-                .collect(),
-        )
-        .unwrap();
+        let bands = BandTable::evenly_spaced(3, 0.5, 0.1).unwrap();
         let mut cube = Cube::from_pixels(data, bands);
         let plane = |v: &[f32]| Array2::from_shape_fn((1, n), |(_, c)| v[c]);
         cube.backplanes

@@ -120,6 +120,19 @@ pub struct BandTable {
 }
 
 impl BandTable {
+    /// `n` point-response bands at `first_um`, `first_um + step_um`, … (synthetic problems
+    /// and tests).
+    pub fn evenly_spaced(n: usize, first_um: f64, step_um: f64) -> Result<BandTable, BandError> {
+        BandTable::new(
+            (0..n)
+                .map(|i| Band {
+                    centre_um: first_um + step_um * i as f64,
+                    response: Response::Point,
+                })
+                .collect(),
+        )
+    }
+
     /// Validates and wraps a list of bands. Band numbers in messages count from 1.
     pub fn new(bands: Vec<Band>) -> Result<BandTable, BandError> {
         if bands.is_empty() {

@@ -127,18 +127,9 @@ impl Cube {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::cube::{Band, Response};
 
     fn table(n: usize) -> BandTable {
-        BandTable::new(
-            (0..n)
-                .map(|i| Band {
-                    centre_um: 0.5 + 0.5 * i as f64,
-                    response: Response::Point,
-                })
-                .collect(),
-        )
-        .unwrap()
+        BandTable::evenly_spaced(n, 0.5, 0.5).unwrap()
     }
 
     #[test]

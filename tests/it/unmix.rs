@@ -318,7 +318,7 @@ fn the_vectorised_kernels_agree_with_the_portable_ones() {
     // The AVX2 + FMA kernels are chosen at run time; the portable ones are their fallback.
     // Both run the same code, so they may differ only by the rounding of fused
     // multiply-adds.
-    use thiomap::cube::{Band, BandTable, Cube, Response};
+    use thiomap::cube::{BandTable, Cube};
     use thiomap::unmix::solve::avx2_available;
     if !avx2_available() {
         eprintln!("no AVX2 on this processor: only the portable kernels run here");
@@ -330,15 +330,7 @@ fn the_vectorised_kernels_agree_with_the_portable_ones() {
         let m = rng.gen_range(2..=8);
         let e = Array2::from_shape_fn((bands, m), |_| rng.gen_range(0.02..1.0));
         let y = ndarray::Array3::from_shape_fn((4, 9, bands), |_| rng.gen_range(0.0f32..1.0));
-        let table = BandTable::new(
-            (0..bands)
-                .map(|i| Band {
-                    centre_um: 0.4 + 0.01 * i as f64,
-                    response: Response::Point,
-                })
-                .collect(),
-        )
-        .unwrap();
+        let table = BandTable::evenly_spaced(bands, 0.4, 0.01).unwrap();
         let cube = Cube::from_pixels(y, table);
         let opts = thiomap::unmix::RunOptions {
             report_shade: false,
