@@ -1,11 +1,13 @@
 //! The parallel driver: unmixes a cube block of rows by block of rows, so no per-band
 //! intermediate (whitened values, residuals) is ever held for the whole cube.
 //!
-//! Per pixel: z = Qᵀy (the whitened spectrum, see [`super::model`]), the active-set solve (or, in subset mode, one solve per allowed
-//! subset, keeping the lowest BIC = B ln(RSS/B) + k ln B, with k the number of non-zero
-//! abundances — the stated penalty against over-fitting; Roberts et al. 1998 for the
-//! per-pixel subsets), the residual r = y − E a computed directly (no cancellation), RMSE
-//! = ‖r‖/√B, and standard errors σ √(cov factor) with σ² = RSS / (B − k + c) (c = 1 with
+//! Per pixel: z = Qᵀy (the whitened spectrum, see [`super::model`]; accumulated in f64
+//! with yᵀy), the active-set solve (or, in subset mode, one solve per allowed subset,
+//! keeping the lowest BIC = B ln(RSS/B) + k ln B, with k the number of non-zero abundances —
+//! the stated penalty against over-fitting; Roberts et al. 1998 for the per-pixel subsets),
+//! the residual sum of squares RSS = ‖y − Qz‖² + ‖z − R a‖² (orthogonal parts: yᵀy − zᵀz
+//! from f64 sums, so no float32 cancellation, plus D in-span terms; the residual y − E a
+//! itself is formed only when asked for), RMSE = √(RSS/B), and standard errors σ √(cov factor) with σ² = RSS / (B − k + c) (c = 1 with
 //! the sum-to-one constraint) or the noise level given.
 //!
 //! Reported abundances have shade removed and are renormalised to sum to one over the
@@ -82,8 +84,10 @@ const ROWS_PER_TASK: usize = 8;
 struct Plan<'a, T> {
     model: &'a Model,
     table: &'a Table<T>,
-    /// Qᵀ band-major (bands × D): z = Σ_k y_k · qt[k].
-    qt: Vec<T>,
+    /// Qᵀ band-major (bands × D): z = Σ_k y_k · qt[k], accumulated in f64 on both paths.
+    qt: Vec<f64>,
+    /// R's material columns one after another (D values each), for the in-span residual.
+    rcol: Vec<f64>,
     /// E's material columns one after another, for the residual.
     ecol: Vec<T>,
     bands: usize,
@@ -106,7 +110,9 @@ impl<'a, T: Real> Plan<'a, T> {
             table: T::table(model),
             qt: (0..nb)
                 .flat_map(|b| (0..dims).map(move |k| model.q[(b, k)]))
-                .map(cast)
+                .collect(),
+            rcol: (0..mat)
+                .flat_map(|j| (0..dims).map(move |k| model.r[(k, j)]))
                 .collect(),
             ecol: (0..mat)
                 .flat_map(|j| (0..nb).map(move |b| model.e[(b, j)]))
@@ -157,16 +163,18 @@ impl Slots<'_> {
 /// z = Qᵀy (D values) with four interleaved accumulator sets to hide the multiply-add
 /// latency.
 #[inline(always)]
-fn whiten<T: Real, const D: usize, const FUSED: bool>(y: &[f32], qt: &[T]) -> [T; D] {
-    let mut acc = [[T::zero(); D]; 4];
+fn whiten<const D: usize, const FUSED: bool>(y: &[f32], qt: &[f64]) -> ([f64; D], f64) {
+    let mut acc = [[0.0f64; D]; 4];
+    let mut sq = [0.0f64; 4];
     let mut bands = y.chunks_exact(4);
     let mut rows = qt.chunks_exact(4 * D);
     for (yy, rr) in (&mut bands).zip(&mut rows) {
         for k in 0..4 {
-            let yk = T::from_f32(yy[k]);
-            let row: &[T; D] = rr[k * D..(k + 1) * D].try_into().expect("D values");
+            let yk = yy[k] as f64;
+            sq[k] = madd::<f64, FUSED>(yk, yk, sq[k]);
+            let row: &[f64; D] = rr[k * D..(k + 1) * D].try_into().expect("D values");
             for j in 0..D {
-                acc[k][j] = madd::<T, FUSED>(row[j], yk, acc[k][j]);
+                acc[k][j] = madd::<f64, FUSED>(row[j], yk, acc[k][j]);
             }
         }
     }
@@ -175,16 +183,43 @@ fn whiten<T: Real, const D: usize, const FUSED: bool>(y: &[f32], qt: &[T]) -> [T
         .iter()
         .zip(rows.remainder().chunks_exact(D))
     {
-        let yk = T::from_f32(*yv);
+        let yk = *yv as f64;
+        sq[0] = madd::<f64, FUSED>(yk, yk, sq[0]);
         for j in 0..D {
-            acc[0][j] = madd::<T, FUSED>(row[j], yk, acc[0][j]);
+            acc[0][j] = madd::<f64, FUSED>(row[j], yk, acc[0][j]);
         }
     }
-    let mut z = [T::zero(); D];
+    let mut z = [0.0f64; D];
     for j in 0..D {
         z[j] = (acc[0][j] + acc[1][j]) + (acc[2][j] + acc[3][j]);
     }
-    z
+    (z, (sq[0] + sq[1]) + (sq[2] + sq[3]))
+}
+
+/// RSS = ‖y − Qz‖² + ‖z − R a‖² (the two parts are orthogonal), in f64: the out-of-span
+/// energy yᵀy − zᵀz from f64 sums of the f32 samples (no float32 cancellation), then the
+/// in-span residual in D dimensions. Equals ‖y − E a‖² without touching the bands again.
+#[inline(always)]
+fn whitened_rss<T: Real, const D: usize, const FUSED: bool>(
+    z: &[f64; D],
+    yy: f64,
+    a: &[T; D],
+    rcol: &[f64],
+) -> f64 {
+    let zz = tree_sum(z.map(|v| v * v));
+    let mut fit = [0.0f64; D];
+    for (j, col) in rcol.chunks_exact(D).enumerate() {
+        let aj = a[j].widen();
+        for k in 0..D {
+            fit[k] = madd::<f64, FUSED>(col[k], aj, fit[k]);
+        }
+    }
+    let mut d2 = [0.0f64; D];
+    for k in 0..D {
+        let d = z[k] - fit[k];
+        d2[k] = d * d;
+    }
+    (yy - zz).max(0.0) + tree_sum(d2)
 }
 
 /// RSS of the direct residual r = y − E a (no cancellation): r is built in `scratch` one
@@ -322,6 +357,9 @@ struct Block<'a, T, const M: usize, const D: usize> {
     /// The first pixel's index in the task.
     px0: usize,
     z: [[T; D]; BLOCK],
+    /// z and yᵀy in f64, for the residual.
+    z64: [[f64; D]; BLOCK],
+    yy: [f64; BLOCK],
     a: [[T; M]; BLOCK],
     /// The full set's violators, or [`SKIP`].
     flips: [u32; BLOCK],
@@ -360,7 +398,9 @@ fn pass_start<T: Real, const M: usize, const D: usize, const FUSED: bool>(
             blk.flips[i] = SKIP;
             continue;
         }
-        blk.z[i] = run_pass!(FUSED, whiten_plain, whiten_avx2, y, &plan.qt);
+        let (z, yy) = run_pass!(FUSED, whiten_plain, whiten_avx2, y, &plan.qt);
+        (blk.z64[i], blk.yy[i]) = (z, yy);
+        blk.z[i] = z.map(|v| T::from(v).unwrap_or(T::nan()));
         (blk.a[i], blk.flips[i]) =
             full_step::<T, M, D, FUSED>(plan.table, &blk.z[i], plan.full, plan.non_negative);
     }
@@ -417,18 +457,20 @@ fn pass_finish<T: Real, const M: usize, const D: usize, const FUSED: bool>(
             continue;
         }
         let px = blk.px0 + i;
-        let res = slots.residual_of(px, nb);
         let am: &[T; D] = blk.a[i][..D].try_into().expect("D materials");
-        let rss = run_pass!(
-            FUSED,
-            residual_plain,
-            residual_avx2,
-            y,
-            am,
-            &plan.ecol,
-            &mut blk.scratch,
-            res
-        );
+        let rss = match slots.residual_of(px, nb) {
+            None => whitened_rss::<T, D, FUSED>(&blk.z64[i], blk.yy[i], am, &plan.rcol),
+            res => run_pass!(
+                FUSED,
+                residual_plain,
+                residual_avx2,
+                y,
+                am,
+                &plan.ecol,
+                &mut blk.scratch,
+                res
+            ),
+        };
         finish(plan, &blk.a[i], rss, blk.passive[i], slots, px, counts);
     }
 }
@@ -437,15 +479,15 @@ fn pass_finish<T: Real, const M: usize, const D: usize, const FUSED: bool>(
 /// inlined into a pass, the vectoriser packed their accumulators two lanes wide (and
 /// spilled them); on their own they run a full register wide.
 #[inline(never)]
-fn whiten_plain<T: Real, const D: usize>(y: &[f32], qt: &[T]) -> [T; D] {
-    whiten::<T, D, false>(y, qt)
+fn whiten_plain<const D: usize>(y: &[f32], qt: &[f64]) -> ([f64; D], f64) {
+    whiten::<D, false>(y, qt)
 }
 
 #[cfg(target_arch = "x86_64")]
 #[target_feature(enable = "avx2,fma")]
 #[inline(never)]
-unsafe fn whiten_avx2<T: Real, const D: usize>(y: &[f32], qt: &[T]) -> [T; D] {
-    whiten::<T, D, true>(y, qt)
+unsafe fn whiten_avx2<const D: usize>(y: &[f32], qt: &[f64]) -> ([f64; D], f64) {
+    whiten::<D, true>(y, qt)
 }
 
 #[inline(never)]
@@ -524,6 +566,8 @@ fn rows_direct<T: Real, const M: usize, const D: usize, const FUSED: bool>(
         ok: &[],
         px0: 0,
         z: [[T::zero(); D]; BLOCK],
+        z64: [[0.0; D]; BLOCK],
+        yy: [0.0; BLOCK],
         a: [[T::zero(); M]; BLOCK],
         flips: [0; BLOCK],
         passive: [0; BLOCK],
