@@ -621,7 +621,6 @@ fn rows_subsets<T: Real, const M: usize, const D: usize, const FUSED: bool>(
     let model = plan.model;
     let nb = plan.bands;
     let n = nb as f64;
-    let q = model.q.as_slice().expect("standard layout");
     let r = model.r.as_slice().expect("standard layout");
     let mut scores: Vec<f64> = Vec::new();
     let mut sols: Vec<[f64; M]> = Vec::new();
@@ -630,15 +629,7 @@ fn rows_subsets<T: Real, const M: usize, const D: usize, const FUSED: bool>(
         if skipped(y, ok, slots, px, plan.planes, counts) {
             continue;
         }
-        let mut z = [0.0f64; D];
-        let mut yy = 0.0;
-        for (yb, qrow) in y.iter().zip(q.chunks_exact(D)) {
-            let yb = *yb as f64;
-            yy += yb * yb;
-            for k in 0..D {
-                z[k] += qrow[k] * yb;
-            }
-        }
+        let (z, yy) = whiten::<D, FUSED>(y, &plan.qt);
         let out_of_span = (yy - z.iter().map(|v| v * v).sum::<f64>()).max(0.0);
         scores.clear();
         sols.clear();
@@ -675,9 +666,11 @@ fn rows_subsets<T: Real, const M: usize, const D: usize, const FUSED: bool>(
         let a: [T; M] = std::array::from_fn(|j| T::from(mean[j] / wsum).unwrap_or(T::nan()));
         let (passive, enumerated, pick) = best_out;
         counts.enumerated += enumerated as usize;
-        let res = slots.residual_of(px, nb);
         let am: &[T; D] = a[..D].try_into().expect("D materials");
-        let rss = residual::<T, D, FUSED>(y, am, &plan.ecol, &mut scratch, res);
+        let rss = match slots.residual_of(px, nb) {
+            None => whitened_rss::<T, D, FUSED>(&z, yy, am, &plan.rcol),
+            res => residual::<T, D, FUSED>(y, am, &plan.ecol, &mut scratch, res),
+        };
         finish(plan, &a, rss, passive, slots, px, counts);
         if let Some(s) = slots.subset.as_deref_mut() {
             s[px] = if slots.um[px] { pick } else { 0 };
