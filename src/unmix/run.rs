@@ -621,7 +621,6 @@ fn rows_subsets<T: Real, const M: usize, const D: usize, const FUSED: bool>(
     let model = plan.model;
     let nb = plan.bands;
     let n = nb as f64;
-    let r = model.r.as_slice().expect("standard layout");
     let mut scores: Vec<f64> = Vec::new();
     let mut sols: Vec<[f64; M]> = Vec::new();
     let mut scratch = vec![T::zero(); nb];
@@ -630,7 +629,6 @@ fn rows_subsets<T: Real, const M: usize, const D: usize, const FUSED: bool>(
             continue;
         }
         let (z, yy) = whiten::<D, FUSED>(y, &plan.qt);
-        let out_of_span = (yy - z.iter().map(|v| v * v).sum::<f64>()).max(0.0);
         scores.clear();
         sols.clear();
         let mut best_score = f64::INFINITY;
@@ -638,13 +636,8 @@ fn rows_subsets<T: Real, const M: usize, const D: usize, const FUSED: bool>(
         for (s, &allowed) in model.subsets.iter().enumerate() {
             let mut a = [0.0f64; M];
             let o = pivot::<f64, M, D, FUSED>(&model.table64, &z, allowed, allowed, true, &mut a);
-            let in_span: f64 = (0..D)
-                .map(|k| {
-                    let fit: f64 = (0..M).map(|j| r[k * M + j] * a[j]).sum();
-                    (z[k] - fit).powi(2)
-                })
-                .sum();
-            let rss = (out_of_span + in_span).max(1e-30);
+            let am: &[f64; D] = a[..D].try_into().expect("D materials");
+            let rss = whitened_rss::<f64, D, FUSED>(&z, yy, am, &plan.rcol).max(1e-30);
             let k = a.iter().filter(|v| **v > 0.0).count() as f64;
             let score = n * (rss / n).ln() + k * n.ln();
             scores.push(score);
