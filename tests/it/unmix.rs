@@ -19,13 +19,14 @@ fn solve64(m: &Model, y: &[f64]) -> Vec<f64> {
     solve_spectrum(m, y).0
 }
 
-/// The f32 path as the driver runs it: inputs, whitening, table and steps in f32.
+/// The f32 path as the driver runs it: f32 samples whitened with f64 sums, then the f32
+/// table and steps.
 fn solve32(m: &Model, y: &[f64]) -> Vec<f64> {
     let z: Vec<f32> = (0..m.q.ncols())
         .map(|k| {
             (0..y.len())
-                .map(|i| m.q[(i, k)] as f32 * y[i] as f32)
-                .sum::<f32>()
+                .map(|i| m.q[(i, k)] * (y[i] as f32) as f64)
+                .sum::<f64>() as f32
         })
         .collect();
     let mut a = vec![0.0f32; m.columns()];
