@@ -104,6 +104,16 @@ fn batch(archive: &Path, out: &Path, extra: &[&str], env: &[(&str, &str)]) -> Ou
     c.output().unwrap()
 }
 
+/// `thiomap merge RESULTS --out OUT`.
+fn merge(results: &Path, out: &Path) -> Output {
+    thiomap(&[
+        "merge",
+        results.to_str().unwrap(),
+        "--out",
+        out.to_str().unwrap(),
+    ])
+}
+
 #[test]
 fn a_broken_cube_is_a_failure_row_and_the_rest_completes() {
     let dir = tempfile::tempdir().unwrap();
@@ -226,22 +236,8 @@ fn shards_together_equal_one_machine_and_merge_reports_everything() {
     );
     let m1 = dir.path().join("m1");
     let m2 = dir.path().join("m2");
-    assert!(thiomap(&[
-        "merge",
-        single.to_str().unwrap(),
-        "--out",
-        m1.to_str().unwrap()
-    ])
-    .status
-    .success());
-    assert!(thiomap(&[
-        "merge",
-        sharded.to_str().unwrap(),
-        "--out",
-        m2.to_str().unwrap()
-    ])
-    .status
-    .success());
+    assert!(merge(&single, &m1).status.success());
+    assert!(merge(&sharded, &m2).status.success());
     let t1 = std::fs::read_to_string(m1.join("archive.csv")).unwrap();
     assert_eq!(t1, std::fs::read_to_string(m2.join("archive.csv")).unwrap());
     assert!(t1.lines().next().unwrap().starts_with("cube,status,area_"));
@@ -330,14 +326,7 @@ fn the_archive_chart_follows_observation_time_when_cubes_carry_one() {
     let out = dir.path().join("out");
     assert_eq!(batch(&a, &out, &[], &[]).status.code(), Some(0));
     let merged = dir.path().join("merged");
-    assert!(thiomap(&[
-        "merge",
-        out.to_str().unwrap(),
-        "--out",
-        merged.to_str().unwrap()
-    ])
-    .status
-    .success());
+    assert!(merge(&out, &merged).status.success());
     let svg = std::fs::read_to_string(merged.join("archive-classes.svg")).unwrap();
     assert!(svg.contains("by observation time"), "the chart is by time");
     let (early, late) = (
