@@ -28,7 +28,7 @@ use ndarray::{Array2, Array3};
 use rayon::prelude::*;
 
 use super::model::{Model, Table};
-use super::solve::{avx2_available, full_step, madd, pivot, positives, tree_sum};
+use super::solve::{avx2_available, full_step, madd, model_sizes, pivot, positives, tree_sum};
 use crate::cube::Cube;
 
 /// Pixels whose materials sum below this are too dark to unmix.
@@ -737,11 +737,7 @@ fn rows_kernel<T: Real>(m: usize, d: usize, vector: bool) -> RowsFn<T> {
             }
         };
     }
-    pick!(
-        (1, 1)(2, 1)(2, 2)(3, 2)(3, 3)(4, 3)(4, 4)(5, 4)(5, 5)(6, 5)(6, 6)(7, 6)(7, 7)(8, 7)(8, 8)(
-            9, 8
-        )(9, 9)(10, 9)(10, 10)(11, 10)(11, 11)(12, 11)(12, 12)
-    )
+    model_sizes!(pick)
 }
 
 /// A vector of `n` values that the parallel pass fills completely.

@@ -293,6 +293,20 @@ pub fn pivot<T: Real, const M: usize, const D: usize, const FUSED: bool>(
     enumerate(table, z, allowed, a)
 }
 
+/// Calls `$pick!` with every (M, D) a model can have — M ≤ 12 columns, D = M or M − 1
+/// whitened dimensions (the shade column adds none) — so that each dispatch table over the
+/// specialised instances lists the same sizes.
+macro_rules! model_sizes {
+    ($pick:ident) => {
+        $pick!(
+            (1, 1)(2, 1)(2, 2)(3, 2)(3, 3)(4, 3)(4, 4)(5, 4)(5, 5)(6, 5)(6, 6)(7, 6)(7, 7)(8, 7)(
+                8, 8
+            )(9, 8)(9, 9)(10, 9)(10, 10)(11, 10)(11, 11)(12, 11)(12, 12)
+        )
+    };
+}
+pub(crate) use model_sizes;
+
 /// The signature of [`pivot`]'s instances behind [`solver`].
 pub type SolveFn<T> = fn(&Table<T>, &[T], u32, u32, bool, &mut [T]) -> Outcome;
 
@@ -320,11 +334,7 @@ pub fn solver<T: Real>(table: &Table<T>) -> SolveFn<T> {
             }
         };
     }
-    pick!(
-        (1, 0)(1, 1)(2, 1)(2, 2)(3, 2)(3, 3)(4, 3)(4, 4)(5, 4)(5, 5)(6, 5)(6, 6)(7, 6)(7, 7)(8, 7)(
-            8, 8
-        )(9, 8)(9, 9)(10, 9)(10, 10)(11, 10)(11, 11)(12, 11)(12, 12)
-    )
+    model_sizes!(pick)
 }
 
 /// Solves one pixel from its whitened values `z` (D values) into `a` (M values) with the
