@@ -1,5 +1,6 @@
-//! Times linfa-clustering's k-means as thiomap calls it (Lloyd's algorithm) from given
-//! centroids for a fixed number of iterations (no tolerance stop), and prints one JSON line.
+//! Times thiomap's k-means (Lloyd's iteration, `thiomap::units::kmeans::lloyd`) from given
+//! centroids for a fixed number of iterations (no tolerance stop), and, for the record,
+//! linfa-clustering's k-means on the same problem; prints one JSON line.
 //! Used by `benches/kmeans_vs_sklearn.py`; not part of the tool.
 //!
 //! Usage: bench_kmeans X.npy C0.npy ITERATIONS THREADS REPEATS
@@ -11,7 +12,20 @@ use linfa_clustering::{KMeans, KMeansInit};
 use ndarray::Array2;
 use ndarray_npy::read_npy;
 use rand::SeedableRng;
-use thiomap::units::cluster::SquaredEuclidean;
+use thiomap::units::kmeans::lloyd;
+
+/// Median seconds of `repeats` calls of `f`, and the last call's result.
+fn median<T>(repeats: usize, mut f: impl FnMut() -> T) -> (f64, T) {
+    let mut times = Vec::new();
+    let mut last = None;
+    for _ in 0..repeats {
+        let t = Instant::now();
+        last = Some(f());
+        times.push(t.elapsed().as_secs_f64());
+    }
+    times.sort_by(f64::total_cmp);
+    (times[times.len() / 2], last.expect("repeats ≥ 1"))
+}
 
 fn main() -> anyhow::Result<()> {
     let args: Vec<String> = std::env::args().skip(1).collect();
@@ -23,32 +37,28 @@ fn main() -> anyhow::Result<()> {
         .build_global()?;
     let x: Array2<f64> = read_npy(x_path)?;
     let c0: Array2<f64> = read_npy(c_path)?;
-    let iters: u64 = iters.parse()?;
-    let data = DatasetBase::from(x);
-    let mut times = Vec::new();
-    let mut inertia = 0.0;
-    for _ in 0..repeats.parse::<usize>()? {
-        let t = Instant::now();
-        let model = KMeans::params_with(
-            c0.nrows(),
-            rand_chacha::ChaCha8Rng::seed_from_u64(1),
-            SquaredEuclidean,
-        )
-        .init_method(KMeansInit::Precomputed(c0.clone()))
-        .n_runs(1)
-        .max_n_iterations(iters)
-        // linfa refuses 0; the smallest positive tolerance stops only at strict convergence,
-        // as scikit-learn's tol = 0 does.
-        .tolerance(f64::MIN_POSITIVE)
-        .fit(&data)?;
-        times.push(t.elapsed().as_secs_f64());
-        inertia = model.inertia();
-    }
-    times.sort_by(f64::total_cmp);
-    let median = times[times.len() / 2];
+    let iters: usize = iters.parse()?;
+    let repeats: usize = repeats.parse()?;
+    let (t, fit) = median(repeats, || lloyd(x.view(), &c0, iters, 0.0));
+    let data = DatasetBase::from(x.clone());
+    let (tl, linfa) = median(repeats, || {
+        KMeans::params_with_rng(c0.nrows(), rand_chacha::ChaCha8Rng::seed_from_u64(1))
+            .init_method(KMeansInit::Precomputed(c0.clone()))
+            .n_runs(1)
+            .max_n_iterations(iters as u64)
+            // linfa refuses 0; the smallest positive tolerance stops only at strict
+            // convergence, as a tolerance of 0 does.
+            .tolerance(f64::MIN_POSITIVE)
+            .fit(&data)
+    });
     println!(
-        "{{\"seconds\": {median:.5}, \"seconds_per_iteration\": {:.6}, \"inertia\": {inertia:.6}}}",
-        median / iters as f64
+        "{{\"seconds\": {t:.5}, \"iterations\": {}, \"seconds_per_iteration\": {:.6}, \
+         \"inertia\": {:.6}, \"linfa_seconds_per_iteration\": {:.6}, \"linfa_inertia\": {:.6}}}",
+        fit.iterations,
+        t / fit.iterations.max(1) as f64,
+        fit.inertia,
+        tl / iters as f64,
+        linfa?.inertia()
     );
     Ok(())
 }

@@ -1,17 +1,13 @@
-//! Clustering abundance vectors into surface units with linfa-clustering's k-means
-//! (Lloyd's algorithm, k-means++ initialisation), fitted on a seeded sample and applied to
-//! every pixel, so the cost grows linearly with the cube.
+//! Clustering abundance vectors into surface units with k-means (Lloyd's iteration from
+//! k-means++ seeds, [`super::kmeans`]), fitted on a seeded sample and applied to every
+//! pixel, so the cost grows linearly with the cube.
 //!
 //! The number of units, when not given, is the K in 2…`max_k` with the highest mean
 //! silhouette (Rousseeuw 1987, J. Comput. Appl. Math. 20:53) on at most
 //! [`SILHOUETTE_POINTS`] sampled pixels: the silhouette costs grow with the square of the
 //! points, so it is never computed on the whole cube.
 //!
-//! k-means measures distances with [`SquaredEuclidean`], linfa-nn's `Distance` trait
-//! implemented over contiguous rows: linfa-nn's own `L2Dist` goes through a generic
-//! per-pair iteration that took nearly nine tenths of each Lloyd iteration here.
-//!
-//! Two other methods, also through linfa-clustering: a **Gaussian mixture** (full
+//! Two other methods, through linfa-clustering: a **Gaussian mixture** (full
 //! covariances, regularised by [`GMM_REG_COVARIANCE`] so a pure-pixel unit with almost no
 //! variance does not collapse; K chosen by the lowest BIC = −2 ln L + p ln n, Schwarz 1978;
 //! pixels assigned to the component of highest posterior), and **DBSCAN** (Ester et al.
@@ -19,9 +15,7 @@
 //! nearest cluster mean).
 
 use linfa::prelude::*;
-use linfa_clustering::KMeans;
-use linfa_nn::distance::Distance;
-use ndarray::{Array1, Array2, ArrayView, ArrayView2, Axis, Dimension};
+use ndarray::{Array1, Array2, ArrayView2, Axis};
 use rand::seq::index::sample;
 use rand::SeedableRng;
 use rand_chacha::ChaCha8Rng;
@@ -31,6 +25,13 @@ use rayon::prelude::*;
 pub const SILHOUETTE_POINTS: usize = 3000;
 /// k-means runs (different seeded initialisations) per K; the lowest inertia wins.
 pub const RUNS: usize = 3;
+/// Lloyd iterations per k-means run, at most.
+pub const MAX_ITERATIONS: usize = 300;
+/// k-means stops when no centroid moves farther than this (abundance units).
+pub const TOLERANCE: f64 = 1e-7;
+
+use super::kmeans::{self, KMeansFit};
+pub use super::kmeans::{assign, nearest};
 
 /// Why clustering failed.
 #[derive(Debug, Clone, PartialEq, thiserror::Error)]
@@ -220,97 +221,18 @@ pub fn sample_indices(total: usize, n: usize, seed: u64) -> Vec<usize> {
     v
 }
 
-/// The Euclidean metric for linfa-clustering's k-means (the metric of linfa-nn's `L2Dist`),
-/// computed on contiguous rows with four partial sums.
-#[derive(Debug, Clone, Copy, Default)]
-pub struct SquaredEuclidean;
-
-impl Distance<f64> for SquaredEuclidean {
-    #[inline]
-    fn distance<D: Dimension>(&self, a: ArrayView<f64, D>, b: ArrayView<f64, D>) -> f64 {
-        self.rdistance(a, b).sqrt()
-    }
-
-    #[inline(always)]
-    fn rdistance<D: Dimension>(&self, a: ArrayView<f64, D>, b: ArrayView<f64, D>) -> f64 {
-        match (a.as_slice(), b.as_slice()) {
-            (Some(x), Some(y)) if x.len() == y.len() => squared_distance(x, y),
-            _ => strided_distance(a, b),
-        }
-    }
-
-    #[inline]
-    fn rdist_to_dist(&self, rdist: f64) -> f64 {
-        rdist.sqrt()
-    }
-
-    #[inline]
-    fn dist_to_rdist(&self, dist: f64) -> f64 {
-        dist * dist
-    }
-}
-
-/// ‖a − b‖² for views that are not contiguous (never the case for k-means' rows).
-#[cold]
-fn strided_distance<D: Dimension>(a: ArrayView<f64, D>, b: ArrayView<f64, D>) -> f64 {
-    assert_eq!(a.shape(), b.shape(), "points of different dimensions");
-    a.iter().zip(b.iter()).map(|(p, q)| (p - q) * (p - q)).sum()
-}
-
-/// ‖x − y‖² with four partial sums (independent dependency chains).
-#[inline(always)]
-fn squared_distance(x: &[f64], y: &[f64]) -> f64 {
-    let mut lanes = [0.0f64; 4];
-    let (xc, yc) = (x.chunks_exact(4), y.chunks_exact(4));
-    let tail: f64 = xc
-        .remainder()
-        .iter()
-        .zip(yc.remainder())
-        .map(|(p, q)| (p - q) * (p - q))
-        .sum();
-    for (p, q) in xc.zip(yc) {
-        for t in 0..4 {
-            let d = p[t] - q[t];
-            lanes[t] += d * d;
-        }
-    }
-    (lanes[0] + lanes[1]) + (lanes[2] + lanes[3]) + tail
-}
-
 fn fit_k(points: &Array2<f64>, k: usize, seed: u64) -> Result<(Array2<f64>, f64), ClusterError> {
-    let data = DatasetBase::from(points.clone());
-    let model = KMeans::params_with(k, ChaCha8Rng::seed_from_u64(seed), SquaredEuclidean)
-        .n_runs(RUNS)
-        .max_n_iterations(300)
-        .tolerance(1e-7)
-        .fit(&data)
-        .map_err(|e| ClusterError::KMeans(e.to_string()))?;
-    Ok((model.centroids().clone(), model.inertia()))
-}
-
-/// Index of the nearest centroid (squared Euclidean distance).
-pub fn nearest(centroids: &Array2<f64>, x: &[f64]) -> usize {
-    let mut best = (f64::INFINITY, 0);
-    for (k, c) in centroids.outer_iter().enumerate() {
-        let d = match c.as_slice() {
-            Some(c) => squared_distance(c, x),
-            None => c.iter().zip(x).map(|(a, b)| (a - b) * (a - b)).sum(),
-        };
-        if d < best.0 {
-            best = (d, k);
+    let mut rng = ChaCha8Rng::seed_from_u64(seed);
+    let mut best: Option<KMeansFit> = None;
+    for _ in 0..RUNS {
+        let init = kmeans::plus_plus(points.view(), k, &mut rng);
+        let fit = kmeans::lloyd(points.view(), &init, MAX_ITERATIONS, TOLERANCE);
+        if best.as_ref().is_none_or(|b| fit.inertia < b.inertia) {
+            best = Some(fit);
         }
     }
-    best.1
-}
-
-/// Assigns every row of `points` to its nearest centroid (in parallel).
-pub fn assign(centroids: &Array2<f64>, points: ArrayView2<f64>) -> Array1<usize> {
-    let v: Vec<usize> = points
-        .axis_iter(Axis(0))
-        .into_par_iter()
-        .map(|row| nearest(centroids, row.as_slice().expect("rows are contiguous")))
-        .collect();
-    Array1::from(v)
+    let best = best.expect("RUNS ≥ 1");
+    Ok((best.centroids, best.inertia))
 }
 
 /// Mean silhouette of a labelling: for each point, (b − a) / max(a, b) with a the mean
@@ -435,7 +357,7 @@ pub fn fit(
     for k in 2..=max_k.min(distinct) {
         let (centroids, _) = fit_k(sample, k, seed)?;
         let labels = assign(&centroids, sil_points.view());
-        let s = silhouette(sil_points.view(), labels.as_slice().expect("contiguous"), k);
+        let s = silhouette(sil_points.view(), &labels, k);
         scores.push((k, s));
         if best.as_ref().is_none_or(|(b, _)| s > *b) {
             best = Some((s, centroids));
@@ -476,27 +398,6 @@ pub fn adjusted_rand_index(a: &[usize], b: &[usize]) -> f64 {
 #[cfg(test)]
 mod tests {
     use super::*;
-
-    #[test]
-    fn the_row_distance_matches_linfa_nn() {
-        // linfa-nn's L2Dist (the reference library's own metric) on contiguous rows,
-        // strided columns and odd dimensions.
-        use linfa_nn::distance::L2Dist;
-        use rand::Rng;
-        let mut rng = ChaCha8Rng::seed_from_u64(3);
-        for dims in [1usize, 3, 4, 7, 8, 11] {
-            let m = Array2::from_shape_fn((6, dims), |_| rng.gen_range(-1.0..1.0));
-            for (a, b) in [(m.row(0), m.row(5)), (m.row(2), m.row(3))] {
-                let want = L2Dist.rdistance(a, b);
-                assert!((SquaredEuclidean.rdistance(a, b) - want).abs() < 1e-12);
-                assert!((SquaredEuclidean.distance(a, b) - L2Dist.distance(a, b)).abs() < 1e-12);
-            }
-            if dims >= 2 {
-                let (a, b) = (m.column(0), m.column(1));
-                assert!((SquaredEuclidean.rdistance(a, b) - L2Dist.rdistance(a, b)).abs() < 1e-12);
-            }
-        }
-    }
 
     #[test]
     fn adjusted_rand_index_of_the_textbook_example() {

@@ -21,6 +21,7 @@
 //! No I/O and no printing here.
 
 pub mod cluster;
+pub mod kmeans;
 pub mod regions;
 pub mod rules;
 

@@ -24,6 +24,67 @@ fn k_means_on_iris_finds_the_classic_three_clusters() {
     assert!(setosa && others, "setosa is one cluster on its own");
 }
 
+#[test]
+fn k_means_agrees_with_linfa_clustering() {
+    // linfa-clustering 0.8.1 (a general-purpose library from the registry) from the same
+    // given centroids, on the Iris data (REFERENCES #19) and on 3,000 seeded Dirichlet(1)
+    // abundance vectors. Its centroid update counts the old centroid as one more member
+    // ("m_k-means"), so the two may settle in slightly different places; the labellings
+    // must agree almost everywhere.
+    use linfa::prelude::*;
+    use linfa_clustering::{KMeans, KMeansInit};
+    use rand::{Rng, SeedableRng};
+    use thiomap::units::kmeans::lloyd;
+    let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(4);
+    let dirichlet =
+        ndarray::Array2::from_shape_fn((3000, 6), |_| -rng.gen_range(1e-12f64..1.0).ln());
+    let dirichlet = &dirichlet
+        / &dirichlet
+            .sum_axis(ndarray::Axis(1))
+            .insert_axis(ndarray::Axis(1));
+    for (x, k) in [
+        (linfa_datasets::iris().records().to_owned(), 3),
+        (dirichlet, 5),
+    ] {
+        let init = x.slice(ndarray::s![..k * 7;7, ..]).to_owned();
+        let ours = lloyd(x.view(), &init, 300, 0.0);
+        let theirs = KMeans::params(k)
+            .init_method(KMeansInit::Precomputed(init.clone()))
+            .n_runs(1)
+            .max_n_iterations(300)
+            .tolerance(1e-10)
+            .fit(&DatasetBase::from(x.clone()))
+            .unwrap();
+        let a = assign(&ours.centroids, x.view());
+        let b = theirs.predict(&x);
+        let same = a.iter().zip(b.iter()).filter(|(p, q)| p == q).count();
+        assert!(
+            same as f64 >= 0.99 * x.nrows() as f64,
+            "{same} of {}",
+            x.nrows()
+        );
+        let diff = ours
+            .centroids
+            .iter()
+            .zip(theirs.centroids().iter())
+            .fold(0.0f64, |m, (p, q)| m.max((p - q).abs()));
+        // At a fixed point linfa's centroid is its members' mean too: where every label
+        // agrees the centroids agree to rounding, elsewhere to about one member's weight.
+        let bound = if same == x.nrows() { 1e-9 } else { 0.01 };
+        assert!(
+            diff < bound,
+            "centroids differ by {diff:e} ({same} labels agree)"
+        );
+        let rel = (ours.inertia - theirs.inertia()).abs() / theirs.inertia();
+        assert!(
+            rel < 0.01,
+            "inertia {} vs {}",
+            ours.inertia,
+            theirs.inertia()
+        );
+    }
+}
+
 /// ARI of `thiomap`'s units against the truth on a demo globe: on core pixels with
 /// incidence and emission below 70°, and on all unmixed pixels.
 fn demo_ari(name: &str, unmix: &UnmixParams) -> (f64, f64, thiomap::units::UnitMap) {
