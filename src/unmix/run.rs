@@ -270,7 +270,7 @@ fn residual<T: Real, const D: usize, const FUSED: bool>(
 fn finish<T: Real, const M: usize>(
     plan: &Plan<T>,
     a: &[T; M],
-    rss: f64,
+    (sigma, rmse): (f64, f64),
     passive: u32,
     slots: &mut Slots,
     px: usize,
@@ -287,12 +287,6 @@ fn finish<T: Real, const M: usize>(
         slots.blank(px, plan.planes);
         return;
     }
-    let kk = positives(a).count_ones() as usize;
-    let nb = plan.bands as f64;
-    let sigma = match plan.opts.noise {
-        Some(n) => n,
-        None => (rss / (nb - kk as f64 + plan.sum_to_one).max(1.0)).sqrt(),
-    };
     let sd = &plan.table.raw(passive)[2 * M * (plan.table.dims + 1)..][..M];
     let inv = 1.0 / sum;
     let (sigma_t, inv_t) = (
@@ -315,10 +309,22 @@ fn finish<T: Real, const M: usize>(
         out_ab[mat].write(shade as f32);
         out_se[mat].write(shade_se as f32);
     }
-    slots.rm[px].write((rss / nb).sqrt() as f32);
-    slots.ac[px] = kk as u8;
+    slots.rm[px].write(rmse as f32);
+    slots.ac[px] = positives(a).count_ones() as u8;
     slots.um[px] = true;
     counts.unmixed += 1;
+}
+
+/// The noise level σ for the standard errors (the one given, or √(RSS / (B − k + c)) with
+/// k the non-zero abundances) and the fit RMSE √(RSS / B).
+#[inline(always)]
+fn noise_and_rmse<T>(plan: &Plan<T>, rss: f64, nonzero: u32) -> (f64, f64) {
+    let nb = plan.bands as f64;
+    let sigma = match plan.opts.noise {
+        Some(n) => n,
+        None => (rss / (nb - nonzero as f64 + plan.sum_to_one).max(1.0)).sqrt(),
+    };
+    (sigma, (rss / nb).sqrt())
 }
 
 /// Whether pixel `y` is skipped before solving (no data, or zero in every band); counts
@@ -443,7 +449,9 @@ fn pass_pivot<T: Real, const M: usize, const D: usize, const FUSED: bool>(
     }
 }
 
-/// Pass 3: residuals and outputs.
+/// Pass 3: residuals and outputs. The residual sums of squares of the whole block come
+/// first, then their noise levels and RMSEs in one loop (the divisions and square roots
+/// vectorise there, instead of stalling each pixel's writes), then the writes.
 #[inline(always)]
 fn pass_finish<T: Real, const M: usize, const D: usize, const FUSED: bool>(
     plan: &Plan<T>,
@@ -452,13 +460,14 @@ fn pass_finish<T: Real, const M: usize, const D: usize, const FUSED: bool>(
     counts: &mut Counts,
 ) {
     let nb = plan.bands;
+    let mut rss = [0.0f64; BLOCK];
+    let mut nonzero = [0u32; BLOCK];
     for (i, y) in blk.y.chunks_exact(nb).enumerate() {
         if blk.flips[i] == SKIP {
             continue;
         }
-        let px = blk.px0 + i;
         let am: &[T; D] = blk.a[i][..D].try_into().expect("D materials");
-        let rss = match slots.residual_of(px, nb) {
+        rss[i] = match slots.residual_of(blk.px0 + i, nb) {
             None => whitened_rss::<T, D, FUSED>(&blk.z64[i], blk.yy[i], am, &plan.rcol),
             res => run_pass!(
                 FUSED,
@@ -471,7 +480,15 @@ fn pass_finish<T: Real, const M: usize, const D: usize, const FUSED: bool>(
                 res
             ),
         };
-        finish(plan, &blk.a[i], rss, blk.passive[i], slots, px, counts);
+        nonzero[i] = positives(&blk.a[i]).count_ones();
+    }
+    let stats: [(f64, f64); BLOCK] =
+        std::array::from_fn(|i| noise_and_rmse(plan, rss[i], nonzero[i]));
+    for (i, st) in stats.iter().enumerate().take(blk.ok.len()) {
+        if blk.flips[i] != SKIP {
+            let px = blk.px0 + i;
+            finish(plan, &blk.a[i], *st, blk.passive[i], slots, px, counts);
+        }
     }
 }
 
@@ -484,7 +501,7 @@ fn whiten_plain<const D: usize>(y: &[f32], qt: &[f64]) -> ([f64; D], f64) {
 }
 
 #[cfg(target_arch = "x86_64")]
-#[target_feature(enable = "avx2,fma")]
+#[target_feature(enable = "avx2,fma,popcnt")]
 #[inline(never)]
 unsafe fn whiten_avx2<const D: usize>(y: &[f32], qt: &[f64]) -> ([f64; D], f64) {
     whiten::<D, true>(y, qt)
@@ -502,7 +519,7 @@ fn residual_plain<T: Real, const D: usize>(
 }
 
 #[cfg(target_arch = "x86_64")]
-#[target_feature(enable = "avx2,fma")]
+#[target_feature(enable = "avx2,fma,popcnt")]
 #[inline(never)]
 unsafe fn residual_avx2<T: Real, const D: usize>(
     y: &[f32],
@@ -530,7 +547,7 @@ macro_rules! pass_variants {
         }
 
         #[cfg(target_arch = "x86_64")]
-        #[target_feature(enable = "avx2,fma")]
+        #[target_feature(enable = "avx2,fma,popcnt")]
         #[inline(never)]
         unsafe fn $avx2<T: Real, const M: usize, const D: usize>(
             plan: &Plan<T>,
@@ -575,6 +592,7 @@ fn rows_direct<T: Real, const M: usize, const D: usize, const FUSED: bool>(
     };
     for (k, (ys, ok)) in y.chunks(nb * BLOCK).zip(valid.chunks(BLOCK)).enumerate() {
         (blk.y, blk.ok, blk.px0) = (ys, ok, k * BLOCK);
+        prefetch(y.get((k + 1) * nb * BLOCK..).unwrap_or(&[]), nb * BLOCK);
         run_pass!(
             FUSED,
             start_plain,
@@ -602,6 +620,18 @@ fn rows_direct<T: Real, const M: usize, const D: usize, const FUSED: bool>(
             slots,
             counts
         );
+    }
+}
+
+/// Asks for the first `len` values of `y` to be brought into the cache (a hint; no effect
+/// off x86-64).
+#[inline(always)]
+fn prefetch(y: &[f32], len: usize) {
+    #[cfg(target_arch = "x86_64")]
+    for line in y[..len.min(y.len())].chunks(16) {
+        use std::arch::x86_64::{_mm_prefetch, _MM_HINT_T0};
+        // SAFETY: SSE is part of the x86-64 baseline; a prefetch never faults.
+        unsafe { _mm_prefetch::<_MM_HINT_T0>(line.as_ptr().cast()) };
     }
 }
 
@@ -664,7 +694,8 @@ fn rows_subsets<T: Real, const M: usize, const D: usize, const FUSED: bool>(
             None => whitened_rss::<T, D, FUSED>(&z, yy, am, &plan.rcol),
             res => residual::<T, D, FUSED>(y, am, &plan.ecol, &mut scratch, res),
         };
-        finish(plan, &a, rss, passive, slots, px, counts);
+        let stats = noise_and_rmse(plan, rss, positives(&a).count_ones());
+        finish(plan, &a, stats, passive, slots, px, counts);
         if let Some(s) = slots.subset.as_deref_mut() {
             s[px] = if slots.um[px] { pick } else { 0 };
         }
@@ -699,7 +730,7 @@ fn rows_fixed<T: Real, const M: usize, const D: usize>(
 }
 
 #[cfg(target_arch = "x86_64")]
-#[target_feature(enable = "avx2,fma")]
+#[target_feature(enable = "avx2,fma,popcnt")]
 unsafe fn rows_fixed_avx2<T: Real, const M: usize, const D: usize>(
     plan: &Plan<T>,
     y: &[f32],

@@ -408,7 +408,9 @@ fn enumerate<T: Float>(table: &Table<T>, z: &[T], allowed: u32, a: &mut [T]) -> 
 pub fn avx2_available() -> bool {
     #[cfg(target_arch = "x86_64")]
     {
-        std::is_x86_feature_detected!("avx2") && std::is_x86_feature_detected!("fma")
+        std::is_x86_feature_detected!("avx2")
+            && std::is_x86_feature_detected!("fma")
+            && std::is_x86_feature_detected!("popcnt")
     }
     #[cfg(not(target_arch = "x86_64"))]
     {
