@@ -119,6 +119,19 @@ pub fn run(args: Args) -> anyhow::Result<ExitCode> {
     bar.finish();
     let map = map.map_err(|e| e.error)?;
     eprintln!("mapped {} units into {}:", map.units.len(), a.out.display());
+    // Columns as wide as their longest entry, so the areas line up.
+    let name_w = map
+        .units
+        .iter()
+        .map(|u| u.label.chars().count())
+        .max()
+        .unwrap_or(0);
+    let class_w = map
+        .units
+        .iter()
+        .map(|u| u.class.len() + 2)
+        .max()
+        .unwrap_or(0);
     for u in &map.units {
         let pct = 100.0 * u.area_fraction;
         // A unit too small to show at one decimal (a few hot-spot pixels) still exists.
@@ -127,7 +140,11 @@ pub fn run(args: Args) -> anyhow::Result<ExitCode> {
         } else {
             format!("{pct:5.1}")
         };
-        eprintln!("  {:>2}  {:<48} [{}] {area} %", u.unit, u.label, u.class);
+        let class = format!("[{}]", u.class);
+        eprintln!(
+            "  {:>2}  {:<name_w$}  {class:<class_w$} {area} %",
+            u.unit, u.label
+        );
     }
     Ok(ExitCode::SUCCESS)
 }
