@@ -270,7 +270,11 @@ fn residual<T: Real, const D: usize, const FUSED: bool>(
 fn finish<T: Real, const M: usize>(
     plan: &Plan<T>,
     a: &[T; M],
-    (sigma, rmse): (f64, f64),
+    Fit {
+        sigma,
+        rmse,
+        nonzero,
+    }: Fit,
     passive: u32,
     slots: &mut Slots,
     px: usize,
@@ -310,21 +314,32 @@ fn finish<T: Real, const M: usize>(
         out_se[mat].write(shade_se as f32);
     }
     slots.rm[px].write(rmse as f32);
-    slots.ac[px] = positives(a).count_ones() as u8;
+    slots.ac[px] = nonzero as u8;
     slots.um[px] = true;
     counts.unmixed += 1;
 }
 
-/// The noise level σ for the standard errors (the one given, or √(RSS / (B − k + c)) with
-/// k the non-zero abundances) and the fit RMSE √(RSS / B).
+/// One solved pixel's fit: the noise level σ for its standard errors (the one given, or
+/// √(RSS / (B − k + c))), its RMSE √(RSS / B), and k, its number of non-zero abundances.
+#[derive(Debug, Clone, Copy, Default)]
+struct Fit {
+    sigma: f64,
+    rmse: f64,
+    nonzero: u32,
+}
+
 #[inline(always)]
-fn noise_and_rmse<T>(plan: &Plan<T>, rss: f64, nonzero: u32) -> (f64, f64) {
+fn fit_of<T>(plan: &Plan<T>, rss: f64, nonzero: u32) -> Fit {
     let nb = plan.bands as f64;
     let sigma = match plan.opts.noise {
         Some(n) => n,
         None => (rss / (nb - nonzero as f64 + plan.sum_to_one).max(1.0)).sqrt(),
     };
-    (sigma, (rss / nb).sqrt())
+    Fit {
+        sigma,
+        rmse: (rss / nb).sqrt(),
+        nonzero,
+    }
 }
 
 /// Whether pixel `y` is skipped before solving (no data, or zero in every band); counts
@@ -480,14 +495,13 @@ fn pass_finish<T: Real, const M: usize, const D: usize, const FUSED: bool>(
                 res
             ),
         };
-        nonzero[i] = positives(&blk.a[i]).count_ones();
+        nonzero[i] = positives::<T, M, FUSED>(&blk.a[i]).count_ones();
     }
-    let stats: [(f64, f64); BLOCK] =
-        std::array::from_fn(|i| noise_and_rmse(plan, rss[i], nonzero[i]));
-    for (i, st) in stats.iter().enumerate().take(blk.ok.len()) {
+    let fits: [Fit; BLOCK] = std::array::from_fn(|i| fit_of(plan, rss[i], nonzero[i]));
+    for (i, fit) in fits.iter().enumerate().take(blk.ok.len()) {
         if blk.flips[i] != SKIP {
             let px = blk.px0 + i;
-            finish(plan, &blk.a[i], *st, blk.passive[i], slots, px, counts);
+            finish(plan, &blk.a[i], *fit, blk.passive[i], slots, px, counts);
         }
     }
 }
@@ -694,8 +708,8 @@ fn rows_subsets<T: Real, const M: usize, const D: usize, const FUSED: bool>(
             None => whitened_rss::<T, D, FUSED>(&z, yy, am, &plan.rcol),
             res => residual::<T, D, FUSED>(y, am, &plan.ecol, &mut scratch, res),
         };
-        let stats = noise_and_rmse(plan, rss, positives(&a).count_ones());
-        finish(plan, &a, stats, passive, slots, px, counts);
+        let fit = fit_of(plan, rss, positives::<T, M, FUSED>(&a).count_ones());
+        finish(plan, &a, fit, passive, slots, px, counts);
         if let Some(s) = slots.subset.as_deref_mut() {
             s[px] = if slots.um[px] { pick } else { 0 };
         }
