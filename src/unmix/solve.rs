@@ -12,7 +12,7 @@
 //! lands on a singular passive set, is solved by enumerating every passive set (exact,
 //! rare).
 //!
-//! There is one pivoting implementation, [`pivot`]. [`solve_pixel`] runs it for any size;
+//! There is one pivoting implementation, `pivot`. [`solve_pixel`] runs it for any size;
 //! the driver inlines it into kernels whose sizes are compile-time constants, so the small
 //! vectors stay in registers.
 
@@ -142,11 +142,12 @@ fn evaluate_fixed<T: Float, const M: usize, const D: usize, const FUSED: bool>(
 }
 
 /// The sign bits of `v` as a mask (bit i for v[i]; negative values and −0 set theirs). On
-/// the AVX2 path (`FUSED`) an f32 array's bits come eight at a time from one `vmovmskps`:
+/// the AVX2 path (`FUSED`, which within the crate is only instantiated behind run-time
+/// detection) an f32 array's bits come eight at a time from one `vmovmskps`:
 /// LLVM does not find that instruction by itself and spent tens of instructions on each
 /// mask. Elsewhere, and for the values past the last whole eight, bit by bit.
 #[inline(always)]
-pub fn sign_mask<T: Real, const M: usize, const FUSED: bool>(v: &[T; M]) -> u32 {
+pub(crate) fn sign_mask<T: Real, const M: usize, const FUSED: bool>(v: &[T; M]) -> u32 {
     let mut mask = 0;
     #[allow(unused_mut)]
     let mut from = 0;
@@ -177,7 +178,7 @@ fn negatives<T: Real, const M: usize, const FUSED: bool>(v: &[T; M], tol: T) -> 
 
 /// The mask of values above zero (the sign bits of 0 − v; 0 − (+0) is +0).
 #[inline(always)]
-pub fn positives<T: Real, const M: usize, const FUSED: bool>(v: &[T; M]) -> u32 {
+pub(crate) fn positives<T: Real, const M: usize, const FUSED: bool>(v: &[T; M]) -> u32 {
     sign_mask::<T, M, FUSED>(&v.map(|x| T::zero() - x))
 }
 
@@ -211,7 +212,7 @@ fn pixel_tolerance<T: Float, const D: usize>(z: &[T; D]) -> T {
 /// abundances at the full set and its violators (0 when they are optimal; always 0 without
 /// `non_negative`). Continue with `pivot(…, start = full ^ violators, …)`, one step on.
 #[inline(always)]
-pub fn full_step<T: Real, const M: usize, const D: usize, const FUSED: bool>(
+pub(crate) fn full_step<T: Real, const M: usize, const D: usize, const FUSED: bool>(
     table: &Table<T>,
     z: &[T; D],
     full: u32,
@@ -239,7 +240,7 @@ pub fn full_step<T: Real, const M: usize, const D: usize, const FUSED: bool>(
 /// abundances (0 outside the passive set). Without `non_negative` (unconstrained and
 /// sum-to-one solvers) `allowed` is solved once, signs unrestricted.
 #[inline(always)]
-pub fn pivot<T: Real, const M: usize, const D: usize, const FUSED: bool>(
+pub(crate) fn pivot<T: Real, const M: usize, const D: usize, const FUSED: bool>(
     table: &Table<T>,
     z: &[T; D],
     allowed: u32,
@@ -326,7 +327,7 @@ macro_rules! model_sizes {
 }
 pub(crate) use model_sizes;
 
-/// The signature of [`pivot`]'s instances behind [`solver`].
+/// The signature of `pivot`'s instances behind [`solver`].
 pub type SolveFn<T> = fn(&Table<T>, &[T], u32, u32, bool, &mut [T]) -> Outcome;
 
 fn solve_fixed<T: Real, const M: usize, const D: usize>(
@@ -342,7 +343,7 @@ fn solve_fixed<T: Real, const M: usize, const D: usize>(
     pivot::<T, M, D, false>(table, z, allowed, start, non_negative, a)
 }
 
-/// The portable instance of [`pivot`] for a table's sizes (every table has M ≤ 12 and
+/// The portable instance of `pivot` for a table's sizes (every table has M ≤ 12 and
 /// D = M or M − 1).
 pub fn solver<T: Real>(table: &Table<T>) -> SolveFn<T> {
     macro_rules! pick {
@@ -357,7 +358,7 @@ pub fn solver<T: Real>(table: &Table<T>) -> SolveFn<T> {
 }
 
 /// Solves one pixel from its whitened values `z` (D values) into `a` (M values) with the
-/// portable instance of [`pivot`].
+/// portable instance of `pivot`.
 pub fn solve_pixel<T: Real>(
     table: &Table<T>,
     z: &[T],
