@@ -1,14 +1,20 @@
 //! The parallel driver: unmixes a cube block of rows by block of rows, so no per-band
 //! intermediate (whitened values, residuals) is ever held for the whole cube.
 //!
-//! Per pixel: z = Qᵀy (the whitened spectrum, see [`super::model`]; accumulated in f64
-//! with yᵀy), the active-set solve (or, in subset mode, one solve per allowed subset,
-//! keeping the lowest BIC = B ln(RSS/B) + k ln B, with k the number of non-zero abundances —
-//! the stated penalty against over-fitting; Roberts et al. 1998 for the per-pixel subsets),
-//! the residual sum of squares RSS = ‖y − Qz‖² + ‖z − R a‖² (orthogonal parts: yᵀy − zᵀz
-//! from f64 sums, so no float32 cancellation, plus D in-span terms; the residual y − E a
-//! itself is formed only when asked for), RMSE = √(RSS/B), and standard errors σ √(cov factor) with σ² = RSS / (B − k + c) (c = 1 with
-//! the sum-to-one constraint) or the noise level given.
+//! Per pixel: z = Qᵀy (the whitened spectrum, see [`super::model`]), the active-set solve
+//! (or, in subset mode, one solve per allowed subset, keeping the lowest
+//! BIC = B ln(RSS/B) + k ln B, with k the number of non-zero abundances — the stated penalty
+//! against over-fitting; Roberts et al. 1998 for the per-pixel subsets), the residual sum of
+//! squares, RMSE = √(RSS/B), and standard errors σ √(cov factor) with
+//! σ² = RSS / (B − k + c) (c = 1 with the sum-to-one constraint) or the noise level given.
+//!
+//! The direct path whitens in the run's precision and takes the RSS from the residual
+//! y − E a itself, eight bands at a time: a sum of squares of small values, with nothing to
+//! cancel, so float32 holds it (the f32 path stays within 1e-6 of the f64 path on the SciPy
+//! reference problems). Subset mode, which scores many subsets of one pixel, whitens once
+//! in f64 with yᵀy and scores each subset by RSS = ‖y − Qz‖² + ‖z − R a‖² (orthogonal
+//! parts: yᵀy − zᵀz from f64 sums, so no float32 cancellation, plus D in-span terms)
+//! without reading the bands again.
 //!
 //! Reported abundances have shade removed and are renormalised to sum to one over the
 //! materials; their standard errors are divided by the same sum. The shade fraction is
@@ -84,12 +90,17 @@ const ROWS_PER_TASK: usize = 8;
 struct Plan<'a, T> {
     model: &'a Model,
     table: &'a Table<T>,
-    /// Qᵀ band-major (bands × D): z = Σ_k y_k · qt[k], accumulated in f64 on both paths.
+    /// Qᵀ band-major (bands × D): z = Σ_k y_k · qt[k]; in f64 for subset mode, and in `T`
+    /// for the direct path.
     qt: Vec<f64>,
+    qt_t: Vec<T>,
     /// R's material columns one after another (D values each), for the in-span residual.
     rcol: Vec<f64>,
     /// E's material columns one after another, for the residual.
     ecol: Vec<T>,
+    /// E eight bands by eight bands (per chunk of eight bands, each material's eight
+    /// values), for the residual sum of squares.
+    echunks: Vec<T>,
     bands: usize,
     /// Material columns (members and groups; shade excluded).
     mat: usize,
@@ -111,12 +122,20 @@ impl<'a, T: Real> Plan<'a, T> {
             qt: (0..nb)
                 .flat_map(|b| (0..dims).map(move |k| model.q[(b, k)]))
                 .collect(),
+            qt_t: (0..nb)
+                .flat_map(|b| (0..dims).map(move |k| model.q[(b, k)]))
+                .map(cast)
+                .collect(),
             rcol: (0..mat)
                 .flat_map(|j| (0..dims).map(move |k| model.r[(k, j)]))
                 .collect(),
             ecol: (0..mat)
                 .flat_map(|j| (0..nb).map(move |b| model.e[(b, j)]))
                 .map(cast)
+                .collect(),
+            echunks: (0..nb / 8)
+                .flat_map(|c| (0..mat).flat_map(move |j| (0..8).map(move |t| (c * 8 + t, j))))
+                .map(|(b, j)| cast(model.e[(b, j)]))
                 .collect(),
             bands: nb,
             mat,
@@ -160,21 +179,19 @@ impl Slots<'_> {
     }
 }
 
-/// z = Qᵀy (D values) with four interleaved accumulator sets to hide the multiply-add
-/// latency.
+/// z = Qᵀy (D values) in precision `T`, with four interleaved accumulator sets to hide
+/// the multiply-add latency.
 #[inline(always)]
-fn whiten<const D: usize, const FUSED: bool>(y: &[f32], qt: &[f64]) -> ([f64; D], f64) {
-    let mut acc = [[0.0f64; D]; 4];
-    let mut sq = [0.0f64; 4];
+fn whiten<T: Real, const D: usize, const FUSED: bool>(y: &[f32], qt: &[T]) -> [T; D] {
+    let mut acc = [[T::zero(); D]; 4];
     let mut bands = y.chunks_exact(4);
     let mut rows = qt.chunks_exact(4 * D);
     for (yy, rr) in (&mut bands).zip(&mut rows) {
         for k in 0..4 {
-            let yk = yy[k] as f64;
-            sq[k] = madd::<f64, FUSED>(yk, yk, sq[k]);
-            let row: &[f64; D] = rr[k * D..(k + 1) * D].try_into().expect("D values");
+            let yk = T::from_f32(yy[k]);
+            let row: &[T; D] = rr[k * D..(k + 1) * D].try_into().expect("D values");
             for j in 0..D {
-                acc[k][j] = madd::<f64, FUSED>(row[j], yk, acc[k][j]);
+                acc[k][j] = madd::<T, FUSED>(row[j], yk, acc[k][j]);
             }
         }
     }
@@ -183,17 +200,89 @@ fn whiten<const D: usize, const FUSED: bool>(y: &[f32], qt: &[f64]) -> ([f64; D]
         .iter()
         .zip(rows.remainder().chunks_exact(D))
     {
-        let yk = *yv as f64;
-        sq[0] = madd::<f64, FUSED>(yk, yk, sq[0]);
+        let yk = T::from_f32(*yv);
         for j in 0..D {
-            acc[0][j] = madd::<f64, FUSED>(row[j], yk, acc[0][j]);
+            acc[0][j] = madd::<T, FUSED>(row[j], yk, acc[0][j]);
         }
     }
-    let mut z = [0.0f64; D];
-    for j in 0..D {
-        z[j] = (acc[0][j] + acc[1][j]) + (acc[2][j] + acc[3][j]);
+    std::array::from_fn(|j| (acc[0][j] + acc[1][j]) + (acc[2][j] + acc[3][j]))
+}
+
+/// ‖y − E a‖² from the residual itself, eight bands at a time: no cancellation, so the
+/// run's precision holds it to a few units of rounding of the residual. `chunks` holds E
+/// eight bands by eight bands, `ecol` its material columns (for the last bands).
+#[inline(always)]
+fn direct_rss<T: Real, const D: usize, const FUSED: bool>(
+    y: &[f32],
+    a: &[T; D],
+    chunks: &[T],
+    ecol: &[T],
+) -> f64 {
+    let nb = y.len();
+    let neg = a.map(|v| -v);
+    let mut lanes = [T::zero(); 8];
+    let mut ys = y.chunks_exact(8);
+    for (yc, ec) in (&mut ys).zip(chunks.chunks_exact(8 * D)) {
+        let mut r: [T; 8] = std::array::from_fn(|t| T::from_f32(yc[t]));
+        for (col, aj) in ec.chunks_exact(8).zip(&neg) {
+            for t in 0..8 {
+                r[t] = madd::<T, FUSED>(col[t], *aj, r[t]);
+            }
+        }
+        for t in 0..8 {
+            lanes[t] = madd::<T, FUSED>(r[t], r[t], lanes[t]);
+        }
     }
-    (z, (sq[0] + sq[1]) + (sq[2] + sq[3]))
+    let mut rss = tree_sum(lanes).widen();
+    let first = nb - ys.remainder().len();
+    for (b, yv) in ys.remainder().iter().enumerate() {
+        let mut r = T::from_f32(*yv);
+        for (j, aj) in neg.iter().enumerate() {
+            r = madd::<T, FUSED>(ecol[j * nb + first + b], *aj, r);
+        }
+        rss += r.widen() * r.widen();
+    }
+    rss
+}
+
+/// [`direct_rss`] for f32 with AVX2 + FMA written out: eight bands per register and every
+/// material's multiply-add on them (LLVM's vectoriser packed the portable loop two lanes
+/// wide).
+///
+/// # Safety
+/// AVX2 and FMA must be available; `chunks` holds `nb / 8` chunks of `a.len()` × 8 values.
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx2,fma")]
+unsafe fn direct_rss_f32(y: &[f32], a: &[f32], chunks: &[f32], ecol: &[f32]) -> f64 {
+    use std::arch::x86_64::*;
+    let (nb, d) = (y.len(), a.len());
+    let full = nb / 8;
+    debug_assert!(chunks.len() >= full * 8 * d);
+    let mut neg = [_mm256_setzero_ps(); 16];
+    for (n, v) in neg.iter_mut().zip(a) {
+        *n = _mm256_set1_ps(-v);
+    }
+    let mut acc = _mm256_setzero_ps();
+    for c in 0..full {
+        // SAFETY (of the reads): band c·8 + 7 < nb, and chunk c has d × 8 values.
+        let mut r = _mm256_loadu_ps(y.as_ptr().add(c * 8));
+        let base = chunks.as_ptr().add(c * 8 * d);
+        for (j, n) in neg.iter().enumerate().take(d) {
+            r = _mm256_fmadd_ps(_mm256_loadu_ps(base.add(j * 8)), *n, r);
+        }
+        acc = _mm256_fmadd_ps(r, r, acc);
+    }
+    let mut lanes = [0.0f32; 8];
+    _mm256_storeu_ps(lanes.as_mut_ptr(), acc);
+    let mut rss = tree_sum(lanes) as f64;
+    for b in full * 8..nb {
+        let mut r = y[b];
+        for (j, aj) in a.iter().enumerate() {
+            r = ecol[j * nb + b].mul_add(-aj, r);
+        }
+        rss += (r as f64) * (r as f64);
+    }
+    rss
 }
 
 /// RSS = ‖y − Qz‖² + ‖z − R a‖² (the two parts are orthogonal), in f64: the out-of-span
@@ -378,9 +467,6 @@ struct Block<'a, T, const M: usize, const D: usize> {
     /// The first pixel's index in the task.
     px0: usize,
     z: [[T; D]; BLOCK],
-    /// z and yᵀy in f64, for the residual.
-    z64: [[f64; D]; BLOCK],
-    yy: [f64; BLOCK],
     a: [[T; M]; BLOCK],
     /// The full set's violators, or [`SKIP`].
     flips: [u32; BLOCK],
@@ -419,9 +505,7 @@ fn pass_start<T: Real, const M: usize, const D: usize, const FUSED: bool>(
             blk.flips[i] = SKIP;
             continue;
         }
-        let (z, yy) = run_pass!(FUSED, whiten_plain, whiten_avx2, y, &plan.qt);
-        (blk.z64[i], blk.yy[i]) = (z, yy);
-        blk.z[i] = z.map(|v| T::from(v).unwrap_or(T::nan()));
+        blk.z[i] = run_pass!(FUSED, whiten_plain, whiten_avx2, y, &plan.qt_t);
         (blk.a[i], blk.flips[i]) =
             full_step::<T, M, D, FUSED>(plan.table, &blk.z[i], plan.full, plan.non_negative);
     }
@@ -483,7 +567,7 @@ fn pass_finish<T: Real, const M: usize, const D: usize, const FUSED: bool>(
         }
         let am: &[T; D] = blk.a[i][..D].try_into().expect("D materials");
         rss[i] = match slots.residual_of(blk.px0 + i, nb) {
-            None => whitened_rss::<T, D, FUSED>(&blk.z64[i], blk.yy[i], am, &plan.rcol),
+            None => run_pass!(FUSED, rss_plain, rss_avx2, y, am, &plan.echunks, &plan.ecol),
             res => run_pass!(
                 FUSED,
                 residual_plain,
@@ -510,15 +594,39 @@ fn pass_finish<T: Real, const M: usize, const D: usize, const FUSED: bool>(
 /// inlined into a pass, the vectoriser packed their accumulators two lanes wide (and
 /// spilled them); on their own they run a full register wide.
 #[inline(never)]
-fn whiten_plain<const D: usize>(y: &[f32], qt: &[f64]) -> ([f64; D], f64) {
-    whiten::<D, false>(y, qt)
+fn whiten_plain<T: Real, const D: usize>(y: &[f32], qt: &[T]) -> [T; D] {
+    whiten::<T, D, false>(y, qt)
 }
 
 #[cfg(target_arch = "x86_64")]
 #[target_feature(enable = "avx2,fma,popcnt")]
 #[inline(never)]
-unsafe fn whiten_avx2<const D: usize>(y: &[f32], qt: &[f64]) -> ([f64; D], f64) {
-    whiten::<D, true>(y, qt)
+unsafe fn whiten_avx2<T: Real, const D: usize>(y: &[f32], qt: &[T]) -> [T; D] {
+    whiten::<T, D, true>(y, qt)
+}
+
+#[inline(never)]
+fn rss_plain<T: Real, const D: usize>(y: &[f32], a: &[T; D], chunks: &[T], ecol: &[T]) -> f64 {
+    direct_rss::<T, D, false>(y, a, chunks, ecol)
+}
+
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx2,fma,popcnt")]
+#[inline(never)]
+unsafe fn rss_avx2<T: Real, const D: usize>(
+    y: &[f32],
+    a: &[T; D],
+    chunks: &[T],
+    ecol: &[T],
+) -> f64 {
+    if std::mem::size_of::<T>() == 4 {
+        // SAFETY: T is f32 (Real has two types, and only f32 is 4 bytes); the caller has
+        // AVX2 and FMA; `chunks` is the plan's, built for these bands and materials.
+        let cast = |v: &[T]| std::slice::from_raw_parts(v.as_ptr().cast::<f32>(), v.len());
+        direct_rss_f32(y, cast(a), cast(chunks), cast(ecol))
+    } else {
+        direct_rss::<T, D, true>(y, a, chunks, ecol)
+    }
 }
 
 #[inline(never)]
@@ -597,8 +705,6 @@ fn rows_direct<T: Real, const M: usize, const D: usize, const FUSED: bool>(
         ok: &[],
         px0: 0,
         z: [[T::zero(); D]; BLOCK],
-        z64: [[0.0; D]; BLOCK],
-        yy: [0.0; BLOCK],
         a: [[T::zero(); M]; BLOCK],
         flips: [0; BLOCK],
         passive: [0; BLOCK],
@@ -672,7 +778,8 @@ fn rows_subsets<T: Real, const M: usize, const D: usize, const FUSED: bool>(
         if skipped(y, ok, slots, px, plan.planes, counts) {
             continue;
         }
-        let (z, yy) = whiten::<D, FUSED>(y, &plan.qt);
+        let z = whiten::<f64, D, FUSED>(y, &plan.qt);
+        let yy: f64 = y.iter().map(|v| *v as f64 * *v as f64).sum();
         scores.clear();
         sols.clear();
         let mut best_score = f64::INFINITY;

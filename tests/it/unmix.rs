@@ -19,14 +19,14 @@ fn solve64(m: &Model, y: &[f64]) -> Vec<f64> {
     solve_spectrum(m, y).0
 }
 
-/// The f32 path as the driver runs it: f32 samples whitened with f64 sums, then the f32
-/// table and steps.
+/// The f32 path as the driver runs it: f32 samples whitened in f32, then the f32 table and
+/// steps.
 fn solve32(m: &Model, y: &[f64]) -> Vec<f64> {
     let z: Vec<f32> = (0..m.q.ncols())
         .map(|k| {
             (0..y.len())
-                .map(|i| m.q[(i, k)] * (y[i] as f32) as f64)
-                .sum::<f64>() as f32
+                .map(|i| m.q[(i, k)] as f32 * y[i] as f32)
+                .sum::<f32>()
         })
         .collect();
     let mut a = vec![0.0f32; m.columns()];
@@ -115,9 +115,12 @@ fn scipy_reference_solutions_are_matched() {
                 assert!((g - w).abs() < 1e-9, "{name} {key}: {a:?} vs {want:?}");
             }
             let a32 = solve32(&m, &y);
-            for (g, w) in a32.iter().zip(&a) {
-                assert!((g - w).abs() < 1e-4, "{name} {key} f32: {a32:?} vs {a:?}");
-            }
+            let worst = a32
+                .iter()
+                .zip(&a)
+                .fold(0.0f64, |m, (g, w)| m.max((g - w).abs()));
+            eprintln!("{name} {key}: f32 path within {worst:.1e} of f64");
+            assert!(worst < 1e-4, "{name} {key} f32: {a32:?} vs {a:?}");
         }
     }
 }
@@ -334,10 +337,12 @@ fn the_vectorised_kernels_agree_with_the_portable_ones() {
         let y = ndarray::Array3::from_shape_fn((4, 9, bands), |_| rng.gen_range(0.0f32..1.0));
         let table = BandTable::evenly_spaced(bands, 0.4, 0.01).unwrap();
         let cube = Cube::from_pixels(y, table);
+        // Without --residuals the RSS comes from the eight-band kernels, with it from the
+        // band-by-band residual; band counts that are not multiples of eight included.
         let opts = thiomap::unmix::RunOptions {
             report_shade: false,
             noise: None,
-            residuals: true,
+            residuals: trial % 2 == 0,
         };
         for solver in [Solver::Fcls, Solver::Nnls, Solver::SumToOne] {
             let md = model(&e, solver);
@@ -363,10 +368,13 @@ fn the_vectorised_kernels_agree_with_the_portable_ones() {
 }
 
 #[test]
-fn the_rmse_from_whitened_sums_equals_the_direct_residual() {
-    // Without --residuals the RSS is ‖y − Qz‖² + ‖z − Ra‖² from f64 sums; with it, the
-    // residual y − Ea itself is formed. Pythagoras (common practice) says they agree: on
-    // the direct path (spectrometer tile) and in subset mode (imager globe).
+fn the_rmse_agrees_however_it_is_computed() {
+    // Without --residuals the direct path (spectrometer tile) sums the residual eight bands
+    // at a time and subset mode (imager globe) uses ‖y − Qz‖² + ‖z − Ra‖² from f64 sums;
+    // with --residuals the residual y − Ea is formed band by band and kept. Pythagoras
+    // (common practice) says all agree. The f32 RMSEs stay within 0.2 % of the f64 ones
+    // (float32 cancellation would cost up to 0.5 %; the few pixels near 0.1 % sit on the
+    // edge of two active sets, where f32 and f64 may settle differently).
     use thiomap::cube::OpenOptions;
     for name in [
         "brimveil-tile-spectrometer24.fits",
@@ -392,13 +400,22 @@ fn the_rmse_from_whitened_sums_equals_the_direct_residual() {
         };
         let ((w32, w64), (d32, d64)) = (run(false), run(true));
         let mut compared = 0;
+        for (x, y) in w32.rmse.iter().zip(w64.rmse.iter()) {
+            assert_eq!(x.is_nan(), y.is_nan(), "{name}: f32 {x} vs f64 {y}");
+            if !x.is_nan() {
+                assert!(
+                    (x - y).abs() <= 2e-3 * y.abs(),
+                    "{name}: f32 {x} vs f64 {y}"
+                );
+            }
+        }
         for (w, d) in [(&w32, &d32), (&w64, &d64)] {
             for (x, y) in w.rmse.iter().zip(d.rmse.iter()) {
                 if x.is_nan() || y.is_nan() {
                     assert_eq!(x.is_nan(), y.is_nan());
                     continue;
                 }
-                // 1e-7 reflectance: the f32 direct residual's own rounding (ε·|y| per band).
+                // 1e-7 reflectance: the f32 residual's own rounding (ε·|y| per band).
                 assert!((x - y).abs() <= 1e-5 * y.abs() + 1e-7, "{name}: {x} vs {y}");
                 compared += 1;
             }
