@@ -417,16 +417,18 @@ struct Fit {
     nonzero: u32,
 }
 
+/// The square roots are taken in f32, eight to a vector instruction when a block's fits
+/// are computed together (σ and the RMSE are written as f32 whatever the precision).
 #[inline(always)]
 fn fit_of<T>(plan: &Plan<T>, rss: f64, nonzero: u32) -> Fit {
     let nb = plan.bands as f64;
     let sigma = match plan.opts.noise {
         Some(n) => n,
-        None => (rss / (nb - nonzero as f64 + plan.sum_to_one).max(1.0)).sqrt(),
+        None => ((rss / (nb - nonzero as f64 + plan.sum_to_one).max(1.0)) as f32).sqrt() as f64,
     };
     Fit {
         sigma,
-        rmse: (rss / nb).sqrt(),
+        rmse: ((rss / nb) as f32).sqrt() as f64,
         nonzero,
     }
 }
