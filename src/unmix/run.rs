@@ -503,13 +503,24 @@ fn pass_start<T: Real, const M: usize, const D: usize, const FUSED: bool>(
 ) {
     let nb = plan.bands;
     for (i, (y, &ok)) in blk.y.chunks_exact(nb).zip(blk.ok).enumerate() {
-        if skipped(y, ok, slots, blk.px0 + i, plan.planes, counts) {
-            blk.flips[i] = SKIP;
-            continue;
+        let skip = skipped(y, ok, slots, blk.px0 + i, plan.planes, counts);
+        blk.flips[i] = if skip { SKIP } else { 0 };
+    }
+    run_pass!(
+        FUSED,
+        whiten_plain,
+        whiten_avx2,
+        blk.y,
+        nb,
+        &plan.qt_t,
+        &blk.flips,
+        &mut blk.z
+    );
+    for i in 0..blk.ok.len() {
+        if blk.flips[i] != SKIP {
+            (blk.a[i], blk.flips[i]) =
+                full_step::<T, M, D, FUSED>(plan.table, &blk.z[i], plan.full, plan.non_negative);
         }
-        blk.z[i] = run_pass!(FUSED, whiten_plain, whiten_avx2, y, &plan.qt_t);
-        (blk.a[i], blk.flips[i]) =
-            full_step::<T, M, D, FUSED>(plan.table, &blk.z[i], plan.full, plan.non_negative);
     }
 }
 
@@ -595,16 +606,45 @@ fn pass_finish<T: Real, const M: usize, const D: usize, const FUSED: bool>(
 /// The whitening and the residual as functions of their own, portable and AVX2 + FMA:
 /// inlined into a pass, the vectoriser packed their accumulators two lanes wide (and
 /// spilled them); on their own they run a full register wide.
+/// z of every pixel of a block that is not skipped (one call per block, so the processor
+/// overlaps neighbouring pixels' sums).
+#[inline(always)]
+fn whiten_block<T: Real, const D: usize, const FUSED: bool>(
+    ys: &[f32],
+    nb: usize,
+    qt: &[T],
+    flips: &[u32; BLOCK],
+    z: &mut [[T; D]; BLOCK],
+) {
+    for ((y, f), z) in ys.chunks_exact(nb).zip(flips).zip(z.iter_mut()) {
+        if *f != SKIP {
+            *z = whiten::<T, D, FUSED>(y, qt);
+        }
+    }
+}
+
 #[inline(never)]
-fn whiten_plain<T: Real, const D: usize>(y: &[f32], qt: &[T]) -> [T; D] {
-    whiten::<T, D, false>(y, qt)
+fn whiten_plain<T: Real, const D: usize>(
+    ys: &[f32],
+    nb: usize,
+    qt: &[T],
+    flips: &[u32; BLOCK],
+    z: &mut [[T; D]; BLOCK],
+) {
+    whiten_block::<T, D, false>(ys, nb, qt, flips, z)
 }
 
 #[cfg(target_arch = "x86_64")]
 #[target_feature(enable = "avx2,fma,popcnt")]
 #[inline(never)]
-unsafe fn whiten_avx2<T: Real, const D: usize>(y: &[f32], qt: &[T]) -> [T; D] {
-    whiten::<T, D, true>(y, qt)
+unsafe fn whiten_avx2<T: Real, const D: usize>(
+    ys: &[f32],
+    nb: usize,
+    qt: &[T],
+    flips: &[u32; BLOCK],
+    z: &mut [[T; D]; BLOCK],
+) {
+    whiten_block::<T, D, true>(ys, nb, qt, flips, z)
 }
 
 #[inline(never)]
