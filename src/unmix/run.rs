@@ -465,6 +465,8 @@ const SKIP: u32 = u32::MAX;
 struct Block<'a, T, const M: usize, const D: usize> {
     /// The block's spectra (pixel-major) and validity.
     y: &'a [f32],
+    /// The spectra after the block's (prefetched while it is whitened).
+    next: &'a [f32],
     ok: &'a [bool],
     /// The first pixel's index in the task.
     px0: usize,
@@ -511,6 +513,7 @@ fn pass_start<T: Real, const M: usize, const D: usize, const FUSED: bool>(
         whiten_plain,
         whiten_avx2,
         blk.y,
+        blk.next,
         nb,
         &plan.qt_t,
         &blk.flips,
@@ -607,16 +610,20 @@ fn pass_finish<T: Real, const M: usize, const D: usize, const FUSED: bool>(
 /// inlined into a pass, the vectoriser packed their accumulators two lanes wide (and
 /// spilled them); on their own they run a full register wide.
 /// z of every pixel of a block that is not skipped (one call per block, so the processor
-/// overlaps neighbouring pixels' sums).
+/// overlaps neighbouring pixels' sums), asking for the matching pixel of the next block
+/// (`next`) to be brought into the cache meanwhile: spread over the block, the requests
+/// do not queue up as a burst of them at the block's start did.
 #[inline(always)]
 fn whiten_block<T: Real, const D: usize, const FUSED: bool>(
     ys: &[f32],
+    next: &[f32],
     nb: usize,
     qt: &[T],
     flips: &[u32; BLOCK],
     z: &mut [[T; D]; BLOCK],
 ) {
-    for ((y, f), z) in ys.chunks_exact(nb).zip(flips).zip(z.iter_mut()) {
+    for (i, ((y, f), z)) in ys.chunks_exact(nb).zip(flips).zip(z.iter_mut()).enumerate() {
+        prefetch(next.get(i * nb..).unwrap_or(&[]), nb);
         if *f != SKIP {
             *z = whiten::<T, D, FUSED>(y, qt);
         }
@@ -626,12 +633,13 @@ fn whiten_block<T: Real, const D: usize, const FUSED: bool>(
 #[inline(never)]
 fn whiten_plain<T: Real, const D: usize>(
     ys: &[f32],
+    next: &[f32],
     nb: usize,
     qt: &[T],
     flips: &[u32; BLOCK],
     z: &mut [[T; D]; BLOCK],
 ) {
-    whiten_block::<T, D, false>(ys, nb, qt, flips, z)
+    whiten_block::<T, D, false>(ys, next, nb, qt, flips, z)
 }
 
 #[cfg(target_arch = "x86_64")]
@@ -639,12 +647,13 @@ fn whiten_plain<T: Real, const D: usize>(
 #[inline(never)]
 unsafe fn whiten_avx2<T: Real, const D: usize>(
     ys: &[f32],
+    next: &[f32],
     nb: usize,
     qt: &[T],
     flips: &[u32; BLOCK],
     z: &mut [[T; D]; BLOCK],
 ) {
-    whiten_block::<T, D, true>(ys, nb, qt, flips, z)
+    whiten_block::<T, D, true>(ys, next, nb, qt, flips, z)
 }
 
 #[inline(never)]
@@ -744,6 +753,7 @@ fn rows_direct<T: Real, const M: usize, const D: usize, const FUSED: bool>(
     let nb = plan.bands;
     let mut blk = Block {
         y: &[],
+        next: &[],
         ok: &[],
         px0: 0,
         z: [[T::zero(); D]; BLOCK],
@@ -754,7 +764,7 @@ fn rows_direct<T: Real, const M: usize, const D: usize, const FUSED: bool>(
     };
     for (k, (ys, ok)) in y.chunks(nb * BLOCK).zip(valid.chunks(BLOCK)).enumerate() {
         (blk.y, blk.ok, blk.px0) = (ys, ok, k * BLOCK);
-        prefetch(y.get((k + 1) * nb * BLOCK..).unwrap_or(&[]), nb * BLOCK);
+        blk.next = y.get((k + 1) * nb * BLOCK..).unwrap_or(&[]);
         run_pass!(
             FUSED,
             start_plain,
