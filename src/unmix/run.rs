@@ -250,14 +250,14 @@ fn direct_rss<T: Real, const D: usize, const FUSED: bool>(
 /// wide).
 ///
 /// # Safety
-/// AVX2 and FMA must be available; `chunks` holds `nb / 8` chunks of `a.len()` × 8 values.
+/// AVX2 and FMA must be available. (The lengths the reads rely on are asserted.)
 #[cfg(target_arch = "x86_64")]
 #[target_feature(enable = "avx2,fma")]
 unsafe fn direct_rss_f32(y: &[f32], a: &[f32], chunks: &[f32], ecol: &[f32]) -> f64 {
     use std::arch::x86_64::*;
     let (nb, d) = (y.len(), a.len());
     let full = nb / 8;
-    debug_assert!(chunks.len() >= full * 8 * d);
+    assert!(chunks.len() >= full * 8 * d && ecol.len() >= nb * d && d <= 16);
     let mut neg = [_mm256_setzero_ps(); 16];
     for (n, v) in neg.iter_mut().zip(a) {
         *n = _mm256_set1_ps(-v);
