@@ -606,9 +606,10 @@ fn pass_finish<T: Real, const M: usize, const D: usize, const FUSED: bool>(
     }
 }
 
-/// The whitening and the residual as functions of their own, portable and AVX2 + FMA:
-/// inlined into a pass, the vectoriser packed their accumulators two lanes wide (and
-/// spilled them); on their own they run a full register wide.
+// The whitening and the residuals as functions of their own, portable and AVX2 + FMA:
+// inlined into a pass, the vectoriser packed their accumulators two lanes wide (and
+// spilled them); on their own they run a full register wide.
+
 /// z of every pixel of a block that is not skipped (one call per block, so the processor
 /// overlaps neighbouring pixels' sums), asking for the matching pixel of the next block
 /// (`next`) to be brought into the cache meanwhile: spread over the block, the requests
