@@ -116,16 +116,14 @@ impl<'a, T: Real> Plan<'a, T> {
         let (nb, mat) = (model.bands(), model.material_columns());
         let dims = model.q.ncols();
         let cast = |v: f64| T::from(v).expect("finite model values");
+        let qt: Vec<f64> = (0..nb)
+            .flat_map(|b| (0..dims).map(move |k| model.q[(b, k)]))
+            .collect();
         Plan {
             model,
             table: T::table(model),
-            qt: (0..nb)
-                .flat_map(|b| (0..dims).map(move |k| model.q[(b, k)]))
-                .collect(),
-            qt_t: (0..nb)
-                .flat_map(|b| (0..dims).map(move |k| model.q[(b, k)]))
-                .map(cast)
-                .collect(),
+            qt_t: qt.iter().copied().map(cast).collect(),
+            qt,
             rcol: (0..mat)
                 .flat_map(|j| (0..dims).map(move |k| model.r[(k, j)]))
                 .collect(),
