@@ -94,6 +94,9 @@ struct Plan<'a, T> {
     /// for the direct path.
     qt: Vec<f64>,
     qt_t: Vec<T>,
+    /// Qᵀ band-major with each band's row padded to eight values (D ≤ 8; empty otherwise):
+    /// one register per band for the AVX2 f32 whitening.
+    qt8: Vec<f32>,
     /// R's material columns one after another (D values each), for the in-span residual.
     rcol: Vec<f64>,
     /// E's material columns one after another, for the residual.
@@ -123,6 +126,13 @@ impl<'a, T: Real> Plan<'a, T> {
             model,
             table: T::table(model),
             qt_t: qt.iter().copied().map(cast).collect(),
+            qt8: if dims <= 8 {
+                qt.chunks_exact(dims.max(1))
+                    .flat_map(|row| (0..8).map(|k| row.get(k).map_or(0.0, |v| *v as f32)))
+                    .collect()
+            } else {
+                Vec::new()
+            },
             qt,
             rcol: (0..mat)
                 .flat_map(|j| (0..dims).map(move |k| model.r[(k, j)]))
@@ -352,9 +362,10 @@ fn residual<T: Real, const D: usize, const FUSED: bool>(
 }
 
 /// Writes one solved pixel: renormalised abundances, standard errors, RMSE, active count;
-/// or marks it dark.
+/// or marks it dark. The D materials are a compile-time length, so their rows are written
+/// a vector at a time.
 #[inline(always)]
-fn finish<T: Real, const M: usize>(
+fn finish<T: Real, const M: usize, const D: usize>(
     plan: &Plan<T>,
     a: &[T; M],
     Fit {
@@ -367,38 +378,43 @@ fn finish<T: Real, const M: usize>(
     px: usize,
     counts: &mut Counts,
 ) {
-    let mat = plan.mat;
-    let mut materials = *a;
-    if plan.model.shade {
-        materials[mat] = T::zero();
-    }
-    let sum = tree_sum(materials).widen();
+    let materials: &[T; D] = a[..D].try_into().expect("D materials");
+    let sum = tree_sum(*materials).widen();
     if sum.is_nan() || sum < DARK_LIMIT {
         counts.dark += 1;
         slots.blank(px, plan.planes);
         return;
     }
-    let sd = &plan.table.raw(passive)[2 * M * (plan.table.dims + 1)..][..M];
+    let sd: &[T; M] = plan.table.raw(passive)[2 * M * (plan.table.dims + 1)..][..M]
+        .try_into()
+        .expect("M deviations");
     let inv = 1.0 / sum;
     let (sigma_t, inv_t) = (
         T::from(sigma).unwrap_or(T::nan()),
         T::from(inv).unwrap_or(T::nan()),
     );
+    let scale = sigma_t * inv_t;
     let planes = plan.planes;
-    let out_ab = &mut slots.ab[px * planes..(px + 1) * planes];
-    let out_se = &mut slots.se[px * planes..(px + 1) * planes];
-    for j in 0..mat {
-        out_ab[j].write((a[j] * inv_t).widen() as f32);
-        out_se[j].write((sigma_t * sd[j] * inv_t).widen() as f32);
+    let out_ab: &mut [MaybeUninit<f32>; D] = (&mut slots.ab[px * planes..][..D])
+        .try_into()
+        .expect("D planes");
+    for j in 0..D {
+        out_ab[j].write((materials[j] * inv_t).widen() as f32);
+    }
+    let out_se: &mut [MaybeUninit<f32>; D] = (&mut slots.se[px * planes..][..D])
+        .try_into()
+        .expect("D planes");
+    for j in 0..D {
+        out_se[j].write((sd[j] * scale).widen() as f32);
     }
     if plan.opts.report_shade {
         let (shade, shade_se) = if plan.model.shade {
-            (a[mat].widen(), sigma * sd[mat].widen())
+            (a[D].widen(), sigma * sd[D].widen())
         } else {
             (1.0 - sum, f64::NAN)
         };
-        out_ab[mat].write(shade as f32);
-        out_se[mat].write(shade_se as f32);
+        slots.ab[px * planes + D].write(shade as f32);
+        slots.se[px * planes + D].write(shade_se as f32);
     }
     slots.rm[px].write(rmse as f32);
     slots.ac[px] = nonzero as u8;
@@ -510,10 +526,9 @@ fn pass_start<T: Real, const M: usize, const D: usize, const FUSED: bool>(
         FUSED,
         whiten_plain,
         whiten_avx2,
+        plan,
         blk.y,
         blk.next,
-        nb,
-        &plan.qt_t,
         &blk.flips,
         &mut blk.z
     );
@@ -599,7 +614,7 @@ fn pass_finish<T: Real, const M: usize, const D: usize, const FUSED: bool>(
     for (i, fit) in fits.iter().enumerate().take(blk.ok.len()) {
         if blk.flips[i] != SKIP {
             let px = blk.px0 + i;
-            finish(plan, &blk.a[i], *fit, blk.passive[i], slots, px, counts);
+            finish::<T, M, D>(plan, &blk.a[i], *fit, blk.passive[i], slots, px, counts);
         }
     }
 }
@@ -631,28 +646,86 @@ fn whiten_block<T: Real, const D: usize, const FUSED: bool>(
 
 #[inline(never)]
 fn whiten_plain<T: Real, const D: usize>(
+    plan: &Plan<T>,
     ys: &[f32],
     next: &[f32],
-    nb: usize,
-    qt: &[T],
     flips: &[u32; BLOCK],
     z: &mut [[T; D]; BLOCK],
 ) {
-    whiten_block::<T, D, false>(ys, next, nb, qt, flips, z)
+    whiten_block::<T, D, false>(ys, next, plan.bands, &plan.qt_t, flips, z)
 }
 
 #[cfg(target_arch = "x86_64")]
 #[target_feature(enable = "avx2,fma,popcnt")]
 #[inline(never)]
 unsafe fn whiten_avx2<T: Real, const D: usize>(
+    plan: &Plan<T>,
     ys: &[f32],
     next: &[f32],
-    nb: usize,
-    qt: &[T],
     flips: &[u32; BLOCK],
     z: &mut [[T; D]; BLOCK],
 ) {
-    whiten_block::<T, D, true>(ys, next, nb, qt, flips, z)
+    if std::mem::size_of::<T>() == 4 && D <= 8 {
+        // SAFETY: T is f32 (Real has two types, and only f32 is 4 bytes), so [[T; D]; BLOCK]
+        // is [[f32; D]; BLOCK]; the caller has AVX2 and FMA.
+        let z = &mut *(z as *mut [[T; D]; BLOCK]).cast::<[[f32; D]; BLOCK]>();
+        whiten_block_f32(ys, next, plan.bands, &plan.qt8, flips, z)
+    } else {
+        whiten_block::<T, D, true>(ys, next, plan.bands, &plan.qt_t, flips, z)
+    }
+}
+
+/// [`whiten_block`] for f32 and D ≤ 8 with AVX2 + FMA written out: one register holds z,
+/// each band adds its padded row of Qᵀ (`qt8`) times the band's value, eight bands per
+/// loop turn over four accumulators (the same order of sums as the portable code).
+///
+/// # Safety
+/// AVX2 and FMA must be available. (The lengths the reads rely on are asserted.)
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx2,fma")]
+unsafe fn whiten_block_f32<const D: usize>(
+    ys: &[f32],
+    next: &[f32],
+    nb: usize,
+    qt8: &[f32],
+    flips: &[u32; BLOCK],
+    z: &mut [[f32; D]; BLOCK],
+) {
+    use std::arch::x86_64::*;
+    assert!(D <= 8 && nb > 0 && qt8.len() == nb * 8);
+    for (i, (y, f)) in ys.chunks_exact(nb).zip(flips).enumerate() {
+        prefetch(next.get(i * nb..).unwrap_or(&[]), nb);
+        if *f == SKIP {
+            continue;
+        }
+        let (yp, q) = (y.as_ptr(), qt8.as_ptr());
+        let mut acc = [_mm256_setzero_ps(); 4];
+        let mut b = 0;
+        // SAFETY (of the reads): band b + 7 < nb = y.len(), and qt8 has 8 values per band.
+        while b + 8 <= nb {
+            for k in 0..8 {
+                let row = _mm256_loadu_ps(q.add((b + k) * 8));
+                acc[k % 4] = _mm256_fmadd_ps(row, _mm256_broadcast_ss(&*yp.add(b + k)), acc[k % 4]);
+            }
+            b += 8;
+        }
+        while b + 4 <= nb {
+            for (k, acc) in acc.iter_mut().enumerate() {
+                let row = _mm256_loadu_ps(q.add((b + k) * 8));
+                *acc = _mm256_fmadd_ps(row, _mm256_broadcast_ss(&*yp.add(b + k)), *acc);
+            }
+            b += 4;
+        }
+        while b < nb {
+            let row = _mm256_loadu_ps(q.add(b * 8));
+            acc[0] = _mm256_fmadd_ps(row, _mm256_broadcast_ss(&*yp.add(b)), acc[0]);
+            b += 1;
+        }
+        let sum = _mm256_add_ps(_mm256_add_ps(acc[0], acc[1]), _mm256_add_ps(acc[2], acc[3]));
+        let mut out = [0.0f32; 8];
+        _mm256_storeu_ps(out.as_mut_ptr(), sum);
+        z[i].copy_from_slice(&out[..D]);
+    }
 }
 
 #[inline(never)]
@@ -735,7 +808,147 @@ macro_rules! pass_variants {
 pass_variants! {
     pass_start => start_plain, start_avx2;
     pass_pivot => pivot_plain, pivot_avx2;
-    pass_finish => finish_plain, finish_avx2;
+}
+
+#[inline(never)]
+fn finish_plain<T: Real, const M: usize, const D: usize>(
+    plan: &Plan<T>,
+    blk: &mut Block<T, M, D>,
+    slots: &mut Slots,
+    counts: &mut Counts,
+) {
+    pass_finish::<T, M, D, false>(plan, blk, slots, counts)
+}
+
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx2,fma,popcnt")]
+#[inline(never)]
+unsafe fn finish_avx2<T: Real, const M: usize, const D: usize>(
+    plan: &Plan<T>,
+    blk: &mut Block<T, M, D>,
+    slots: &mut Slots,
+    counts: &mut Counts,
+) {
+    if std::mem::size_of::<T>() == 4 && D <= 8 && slots.residual.is_none() {
+        // SAFETY: T is f32 (Real has two types, and only f32 is 4 bytes), so the plan and
+        // the block have the same layout as their f32 instances; the caller has AVX2 + FMA.
+        let plan = &*(plan as *const Plan<T>).cast::<Plan<f32>>();
+        let blk = &mut *(blk as *mut Block<T, M, D>).cast::<Block<f32, M, D>>();
+        finish_block_f32(plan, blk, slots, counts)
+    } else {
+        pass_finish::<T, M, D, true>(plan, blk, slots, counts)
+    }
+}
+
+/// [`pass_finish`] for f32 and D ≤ 8 materials with AVX2 + FMA written out (the direct
+/// path without `--residuals`): each pixel's residual eight bands per register, then one
+/// register each for its abundance and standard-error rows (the compiler wrote those
+/// element by element).
+///
+/// # Safety
+/// AVX2 and FMA must be available.
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx2,fma,popcnt")]
+unsafe fn finish_block_f32<const M: usize, const D: usize>(
+    plan: &Plan<f32>,
+    blk: &mut Block<f32, M, D>,
+    slots: &mut Slots,
+    counts: &mut Counts,
+) {
+    use std::arch::x86_64::*;
+    let nb = plan.bands;
+    let full = nb / 8;
+    assert!(D <= 8 && M >= D && plan.echunks.len() == full * 8 * D && plan.ecol.len() == nb * D);
+    // Lane j < D of a register holds material j; the rest are masked off.
+    let lanes = _mm256_cmpgt_epi32(
+        _mm256_set1_epi32(D as i32),
+        _mm256_setr_epi32(0, 1, 2, 3, 4, 5, 6, 7),
+    );
+    // The first D values at `p` (which holds at least M ≥ D; eight when M ≥ 8).
+    let load = |p: *const f32| {
+        if M >= 8 {
+            _mm256_loadu_ps(p)
+        } else {
+            _mm256_maskload_ps(p, lanes)
+        }
+    };
+    let mut rss = [0.0f64; BLOCK];
+    let mut nonzero = [0u32; BLOCK];
+    for (i, y) in blk.y.chunks_exact(nb).enumerate() {
+        if blk.flips[i] == SKIP {
+            continue;
+        }
+        let a = &blk.a[i];
+        let am: [__m256; D] = std::array::from_fn(|j| _mm256_set1_ps(a[j]));
+        let mut acc = _mm256_setzero_ps();
+        for c in 0..full {
+            // SAFETY (of the reads): band c·8 + 7 < nb, and chunk c holds D × 8 values.
+            let mut r = _mm256_loadu_ps(y.as_ptr().add(c * 8));
+            let base = plan.echunks.as_ptr().add(c * 8 * D);
+            for (j, aj) in am.iter().enumerate() {
+                r = _mm256_fnmadd_ps(_mm256_loadu_ps(base.add(j * 8)), *aj, r);
+            }
+            acc = _mm256_fmadd_ps(r, r, acc);
+        }
+        let mut sums = [0.0f32; 8];
+        _mm256_storeu_ps(sums.as_mut_ptr(), acc);
+        let mut total = tree_sum(sums) as f64;
+        for (b, yv) in y.iter().enumerate().skip(full * 8) {
+            let mut r = *yv;
+            for (j, aj) in a.iter().take(D).enumerate() {
+                r = plan.ecol[j * nb + b].mul_add(-aj, r);
+            }
+            total += (r as f64) * (r as f64);
+        }
+        rss[i] = total;
+        nonzero[i] = positives::<f32, M, true>(a).count_ones();
+    }
+    let fits: [Fit; BLOCK] = std::array::from_fn(|i| fit_of(plan, rss[i], nonzero[i]));
+    let (planes, stride) = (plan.planes, 2 * M * (plan.table.dims + 1));
+    for (i, fit) in fits.iter().enumerate().take(blk.ok.len()) {
+        if blk.flips[i] == SKIP {
+            continue;
+        }
+        let px = blk.px0 + i;
+        let a = &blk.a[i];
+        let materials = load(a.as_ptr());
+        let sum = tree_sum::<f32, D>(a[..D].try_into().expect("D materials"));
+        if sum.is_nan() || (sum as f64) < DARK_LIMIT {
+            counts.dark += 1;
+            slots.blank(px, planes);
+            continue;
+        }
+        let inv = (1.0 / sum as f64) as f32;
+        let scale = fit.sigma as f32 * inv;
+        let sd = &plan.table.raw(blk.passive[i])[stride..][..M];
+        let ab = &mut slots.ab[px * planes..][..D];
+        let se = &mut slots.se[px * planes..][..D];
+        let (ab_v, se_v) = (
+            _mm256_mul_ps(materials, _mm256_set1_ps(inv)),
+            _mm256_mul_ps(load(sd.as_ptr()), _mm256_set1_ps(scale)),
+        );
+        // SAFETY: each row has D slots; eight-wide stores only when D = 8.
+        if D == 8 {
+            _mm256_storeu_ps(ab.as_mut_ptr().cast(), ab_v);
+            _mm256_storeu_ps(se.as_mut_ptr().cast(), se_v);
+        } else {
+            _mm256_maskstore_ps(ab.as_mut_ptr().cast(), lanes, ab_v);
+            _mm256_maskstore_ps(se.as_mut_ptr().cast(), lanes, se_v);
+        }
+        if plan.opts.report_shade {
+            let (shade, shade_se) = if plan.model.shade {
+                (a[D] as f64, fit.sigma * sd[D] as f64)
+            } else {
+                (1.0 - sum as f64, f64::NAN)
+            };
+            slots.ab[px * planes + D].write(shade as f32);
+            slots.se[px * planes + D].write(shade_se as f32);
+        }
+        slots.rm[px].write(fit.rmse as f32);
+        slots.ac[px] = fit.nonzero as u8;
+        slots.um[px] = true;
+        counts.unmixed += 1;
+    }
 }
 
 /// A task's pixels on the direct path, a block of [`BLOCK`] pixels at a time in three
@@ -867,7 +1080,7 @@ fn rows_subsets<T: Real, const M: usize, const D: usize, const FUSED: bool>(
             res => residual::<T, D, FUSED>(y, am, &plan.ecol, &mut scratch, res),
         };
         let fit = fit_of(plan, rss, positives::<T, M, FUSED>(&a).count_ones());
-        finish(plan, &a, fit, passive, slots, px, counts);
+        finish::<T, M, D>(plan, &a, fit, passive, slots, px, counts);
         if let Some(s) = slots.subset.as_deref_mut() {
             s[px] = if slots.um[px] { pick } else { 0 };
         }
