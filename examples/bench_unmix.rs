@@ -1,6 +1,6 @@
-//! Times thiomap's FCLS end to end (Eᵀy, active-set solve, residual RMSE, standard errors)
-//! on a synthetic problem written by `benches/unmix_vs_numpy.py`, and prints one JSON
-//! line. Not part of the tool.
+//! Times thiomap's FCLS end to end (Eᵀy, active-set solve, residual RMSE, standard errors
+//! in their factored form) on a synthetic problem written by `benches/unmix_vs_numpy.py`,
+//! and prints one JSON line. Not part of the tool.
 //!
 //! Usage: bench_unmix E.npy Y.npy A.npy THREADS REPEATS
 //!   E: (B, M) f64 endmembers; Y: (H, W, B) f32 pixels; A: (H·W, M) f64 true abundances.
@@ -36,6 +36,8 @@ fn main() -> anyhow::Result<()> {
     let mut times = Vec::new();
     let mut out = None;
     for _ in 0..repeats.parse::<usize>()? {
+        // The previous result goes first, as numpy's product is discarded between calls.
+        drop(out.take());
         let t = Instant::now();
         out = Some(unmix::<f32>(&cube, &model, &opts, &|_| {}));
         times.push(t.elapsed().as_secs_f64());

@@ -244,7 +244,7 @@ pub fn write_unmix_products(
     results::write_planes(
         &dir.join("stderr.fits"),
         &out.ids,
-        &out.stderr,
+        &out.stderr(),
         info,
         "standard errors of the abundances",
     )?;

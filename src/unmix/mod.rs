@@ -24,7 +24,7 @@ pub mod solve;
 
 pub use model::{Model, ModelError};
 pub use params::{ParamError, Solver, Subsets, UnmixParams};
-pub use run::{unmix, unmix_with, Counts, RunOptions, UnmixOutput};
+pub use run::{unmix, unmix_with, Counts, RunOptions, StdErrors, UnmixOutput};
 
 use serde::Serialize;
 
@@ -59,7 +59,7 @@ pub fn plane_stats(out: &UnmixOutput) -> Vec<PlaneStats> {
                 s2 += v * v;
                 lo = lo.min(v);
                 hi = hi.max(v);
-                let e = out.stderr[(r, c, j)] as f64;
+                let e = out.stderr_at(r, c, j) as f64;
                 if e.is_finite() {
                     se += e;
                     se_n += 1;

@@ -62,7 +62,8 @@ pub struct UnmixOutput {
     pub ids: Vec<String>,
     /// (row, col, plane); NaN where `unmixed` is false.
     pub abundance: Array3<f32>,
-    pub stderr: Array3<f32>,
+    /// The standard errors, factored (expanded by [`UnmixOutput::stderr`]).
+    pub errors: StdErrors,
     pub rmse: Array2<f32>,
     /// Non-zero abundances per pixel (0 where not unmixed).
     pub active: Array2<u8>,
@@ -71,6 +72,55 @@ pub struct UnmixOutput {
     pub residual: Option<Array3<f32>>,
     pub unmixed: Array2<bool>,
     pub counts: Counts,
+}
+
+/// The standard errors in factored form. Pixel (r, c)'s standard error on plane j is
+/// `scale[(r, c)] · factor_j(passive[(r, c)])`: the scale is σ / Σa (the noise level over
+/// the material sum that renormalises the abundances) and the factor √c_j the constrained
+/// Cramér–Rao factor of the pixel's passive set, which the model's table holds for every
+/// set. Six bytes per pixel instead of four per plane; the planes are formed when asked
+/// for. The shade plane's error is σ·√c (not renormalised), with σ = scale · (1 − shade)
+/// (the sum-to-one constraint that a shade column comes with); NaN without a shade column.
+#[derive(Debug, Clone)]
+pub struct StdErrors {
+    /// σ / Σa per pixel; NaN where not unmixed.
+    pub scale: Array2<f32>,
+    /// The passive set per pixel (bit j: column j); 0 where not unmixed.
+    pub passive: Array2<u16>,
+    /// √c_j of every passive set, `columns` values per set (NaN for singular sets).
+    factors: Vec<f32>,
+    columns: usize,
+    materials: usize,
+    /// Whether the model has a shade column (the last).
+    shade_column: bool,
+}
+
+impl StdErrors {
+    /// The factors √c_j of passive set `set` (one per column: materials, then shade).
+    pub fn factors(&self, set: u16) -> &[f32] {
+        &self.factors[set as usize * self.columns..][..self.columns]
+    }
+}
+
+impl UnmixOutput {
+    /// The standard error of pixel (r, c) on plane j (NaN where not unmixed).
+    pub fn stderr_at(&self, r: usize, c: usize, j: usize) -> f32 {
+        let e = &self.errors;
+        let scale = e.scale[(r, c)];
+        let f = e.factors(e.passive[(r, c)]);
+        if j < e.materials {
+            scale * f[j]
+        } else if e.shade_column {
+            scale * (1.0 - self.abundance[(r, c, j)]) * f[e.materials]
+        } else {
+            f32::NAN
+        }
+    }
+
+    /// The standard errors as planes, (row, col, plane) like the abundances.
+    pub fn stderr(&self) -> Array3<f32> {
+        Array3::from_shape_fn(self.abundance.dim(), |(r, c, j)| self.stderr_at(r, c, j))
+    }
 }
 
 /// Options of a run that are not model parameters.
@@ -159,7 +209,9 @@ impl<'a, T: Real> Plan<'a, T> {
 /// The output slots of one task's rows (pixel-major, as the arrays store them).
 struct Slots<'a> {
     ab: &'a mut [MaybeUninit<f32>],
-    se: &'a mut [MaybeUninit<f32>],
+    /// The standard errors' scale σ / Σa and passive set ([`StdErrors`]).
+    sc: &'a mut [MaybeUninit<f32>],
+    ps: &'a mut [u16],
     rm: &'a mut [MaybeUninit<f32>],
     ac: &'a mut [u8],
     um: &'a mut [bool],
@@ -174,9 +226,8 @@ impl Slots<'_> {
         for v in &mut self.ab[px * planes..(px + 1) * planes] {
             v.write(f32::NAN);
         }
-        for v in &mut self.se[px * planes..(px + 1) * planes] {
-            v.write(f32::NAN);
-        }
+        self.sc[px].write(f32::NAN);
+        self.ps[px] = 0;
         self.rm[px].write(f32::NAN);
     }
 
@@ -385,15 +436,8 @@ fn finish<T: Real, const M: usize, const D: usize>(
         slots.blank(px, plan.planes);
         return;
     }
-    let sd: &[T; M] = plan.table.raw(passive)[2 * M * (plan.table.dims + 1)..][..M]
-        .try_into()
-        .expect("M deviations");
     let inv = 1.0 / sum;
-    let (sigma_t, inv_t) = (
-        T::from(sigma).unwrap_or(T::nan()),
-        T::from(inv).unwrap_or(T::nan()),
-    );
-    let scale = sigma_t * inv_t;
+    let inv_t = T::from(inv).unwrap_or(T::nan());
     let planes = plan.planes;
     let out_ab: &mut [MaybeUninit<f32>; D] = (&mut slots.ab[px * planes..][..D])
         .try_into()
@@ -401,21 +445,16 @@ fn finish<T: Real, const M: usize, const D: usize>(
     for j in 0..D {
         out_ab[j].write((materials[j] * inv_t).widen() as f32);
     }
-    let out_se: &mut [MaybeUninit<f32>; D] = (&mut slots.se[px * planes..][..D])
-        .try_into()
-        .expect("D planes");
-    for j in 0..D {
-        out_se[j].write((sd[j] * scale).widen() as f32);
-    }
     if plan.opts.report_shade {
-        let (shade, shade_se) = if plan.model.shade {
-            (a[D].widen(), sigma * sd[D].widen())
+        let shade = if plan.model.shade {
+            a[D].widen()
         } else {
-            (1.0 - sum, f64::NAN)
+            1.0 - sum
         };
         slots.ab[px * planes + D].write(shade as f32);
-        slots.se[px * planes + D].write(shade_se as f32);
     }
+    slots.sc[px].write((sigma * inv) as f32);
+    slots.ps[px] = passive as u16;
     slots.rm[px].write(rmse as f32);
     slots.ac[px] = nonzero as u8;
     slots.um[px] = true;
@@ -904,7 +943,7 @@ unsafe fn finish_block_f32<const M: usize, const D: usize>(
         nonzero[i] = positives::<f32, M, true>(a).count_ones();
     }
     let fits: [Fit; BLOCK] = std::array::from_fn(|i| fit_of(plan, rss[i], nonzero[i]));
-    let (planes, stride) = (plan.planes, 2 * M * (plan.table.dims + 1));
+    let planes = plan.planes;
     for (i, fit) in fits.iter().enumerate().take(blk.ok.len()) {
         if blk.flips[i] == SKIP {
             continue;
@@ -918,32 +957,25 @@ unsafe fn finish_block_f32<const M: usize, const D: usize>(
             slots.blank(px, planes);
             continue;
         }
-        let inv = (1.0 / sum as f64) as f32;
-        let scale = fit.sigma as f32 * inv;
-        let sd = &plan.table.raw(blk.passive[i])[stride..][..M];
+        let inv = 1.0 / sum as f64;
         let ab = &mut slots.ab[px * planes..][..D];
-        let se = &mut slots.se[px * planes..][..D];
-        let (ab_v, se_v) = (
-            _mm256_mul_ps(materials, _mm256_set1_ps(inv)),
-            _mm256_mul_ps(load(sd.as_ptr()), _mm256_set1_ps(scale)),
-        );
-        // SAFETY: each row has D slots; eight-wide stores only when D = 8.
+        let ab_v = _mm256_mul_ps(materials, _mm256_set1_ps(inv as f32));
+        // SAFETY: the row has D slots; eight-wide stores only when D = 8.
         if D == 8 {
             _mm256_storeu_ps(ab.as_mut_ptr().cast(), ab_v);
-            _mm256_storeu_ps(se.as_mut_ptr().cast(), se_v);
         } else {
             _mm256_maskstore_ps(ab.as_mut_ptr().cast(), lanes, ab_v);
-            _mm256_maskstore_ps(se.as_mut_ptr().cast(), lanes, se_v);
         }
         if plan.opts.report_shade {
-            let (shade, shade_se) = if plan.model.shade {
-                (a[D] as f64, fit.sigma * sd[D] as f64)
+            let shade = if plan.model.shade {
+                a[D] as f64
             } else {
-                (1.0 - sum as f64, f64::NAN)
+                1.0 - sum as f64
             };
             slots.ab[px * planes + D].write(shade as f32);
-            slots.se[px * planes + D].write(shade_se as f32);
         }
+        slots.sc[px].write((fit.sigma * inv) as f32);
+        slots.ps[px] = blk.passive[i] as u16;
         slots.rm[px].write(fit.rmse as f32);
         slots.ac[px] = fit.nonzero as u8;
         slots.um[px] = true;
@@ -1218,7 +1250,8 @@ pub fn unmix_with<T: Real>(
         ids.push("shade".into());
     }
     let npx = rows * cols;
-    let (mut ab, mut se, mut rm) = (uninit(npx * planes), uninit(npx * planes), uninit(npx));
+    let (mut ab, mut sc, mut rm) = (uninit(npx * planes), uninit(npx), uninit(npx));
+    let mut passive = Array2::<u16>::zeros((rows, cols));
     let mut active = Array2::<u8>::zeros((rows, cols));
     let mut unmixed = Array2::<bool>::from_elem((rows, cols), false);
     let mut subset = model
@@ -1239,13 +1272,15 @@ pub fn unmix_with<T: Real>(
     let chunks = |n: usize| n.max(1) * task;
     let mut tasks: Vec<Slots> = ab.spare_capacity_mut()[..npx * planes]
         .chunks_mut(chunks(planes))
-        .zip(se.spare_capacity_mut()[..npx * planes].chunks_mut(chunks(planes)))
+        .zip(sc.spare_capacity_mut()[..npx].chunks_mut(task))
+        .zip(passive.as_slice_mut().expect("standard").chunks_mut(task))
         .zip(rm.spare_capacity_mut()[..npx].chunks_mut(task))
         .zip(active.as_slice_mut().expect("standard").chunks_mut(task))
         .zip(unmixed.as_slice_mut().expect("standard").chunks_mut(task))
-        .map(|((((ab, se), rm), ac), um)| Slots {
+        .map(|(((((ab, sc), ps), rm), ac), um)| Slots {
             ab,
-            se,
+            sc,
+            ps,
             rm,
             ac,
             um,
@@ -1290,14 +1325,29 @@ pub fn unmix_with<T: Real>(
     // slots (`finish` or `blank`), so the first `len` values are initialised.
     unsafe {
         ab.set_len(npx * planes);
-        se.set_len(npx * planes);
+        sc.set_len(npx);
         rm.set_len(npx);
     }
     let shape3 = (rows, cols, planes);
     UnmixOutput {
         ids,
         abundance: Array3::from_shape_vec(shape3, ab).expect("sized above"),
-        stderr: Array3::from_shape_vec(shape3, se).expect("sized above"),
+        errors: StdErrors {
+            scale: Array2::from_shape_vec((rows, cols), sc).expect("sized above"),
+            passive,
+            factors: (0..1u32 << plan.table.columns)
+                .flat_map(|set| {
+                    let sd = &plan.table.raw(set)[2 * plan.table.columns * (plan.table.dims + 1)..]
+                        [..plan.table.columns];
+                    let ok = plan.table.has(set);
+                    sd.iter()
+                        .map(move |v| if ok { v.widen() as f32 } else { f32::NAN })
+                })
+                .collect(),
+            columns: plan.table.columns,
+            materials: plan.mat,
+            shade_column: model.shade,
+        },
         rmse: Array2::from_shape_vec((rows, cols), rm).expect("sized above"),
         active,
         subset,

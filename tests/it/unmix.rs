@@ -423,3 +423,66 @@ fn the_rmse_agrees_however_it_is_computed() {
         assert!(compared > 2 * 5000, "{name}: {compared}");
     }
 }
+
+#[test]
+fn standard_errors_follow_the_constrained_cramer_rao_form() {
+    // REFERENCES (formulas): se_j = σ √c_j with c the diagonal of
+    // G⁻¹ − G⁻¹11ᵀG⁻¹/(1ᵀG⁻¹1) on the pixel's passive set (G = E_PᵀE_P) and
+    // σ² = RSS / (B − k + 1); the material errors are divided by the material sum, like the
+    // abundances, and the shade's is not. Recomputed here pixel by pixel from an f64 solve
+    // and `Model::covariance_factor`, apart from the factored form the run keeps.
+    use thiomap::cube::OpenOptions;
+    let path = std::path::Path::new(env!("CARGO_MANIFEST_DIR"))
+        .join("demo-cubes")
+        .join("brimveil-tile-spectrometer24.fits");
+    let cube = thiomap::cube::load(&path, &OpenOptions::default()).unwrap();
+    let lib = thiomap::library::Library::embedded();
+    let r = thiomap::library::resample::resample(&lib, &cube.info.bands).unwrap();
+    let model = Model::build(&r, &UnmixParams::default()).unwrap();
+    assert!(model.shade, "the default model has a shade column");
+    let opts = thiomap::unmix::RunOptions {
+        report_shade: true,
+        noise: None,
+        residuals: false,
+    };
+    let out = thiomap::unmix::unmix::<f64>(&cube, &model, &opts, &|_| {});
+    let planes = out.stderr();
+    let (rows, cols, nb) = cube.data.dim();
+    let mat = model.material_columns();
+    let mut checked = 0;
+    for (r, c) in (0..rows * cols).step_by(7).map(|i| (i / cols, i % cols)) {
+        if !out.unmixed[(r, c)] {
+            for j in 0..=mat {
+                assert!(planes[(r, c, j)].is_nan(), "no error without a solution");
+            }
+            continue;
+        }
+        let y: Vec<f64> = (0..nb).map(|b| cube.data[(r, c, b)] as f64).collect();
+        let (a, o) = solve_spectrum(&model, &y);
+        assert_eq!(
+            o.passive,
+            out.errors.passive[(r, c)] as u32,
+            "pixel {r},{c}"
+        );
+        let sum: f64 = a[..mat].iter().sum();
+        let k = out.active[(r, c)] as f64;
+        let rss = (out.rmse[(r, c)] as f64).powi(2) * nb as f64;
+        let sigma = (rss / (nb as f64 - k + 1.0)).sqrt();
+        let f = model.covariance_factor(o.passive).unwrap();
+        for j in 0..=mat {
+            let want = if j < mat {
+                sigma * f[j].sqrt() / sum
+            } else {
+                sigma * f[j].sqrt()
+            };
+            let got = out.stderr_at(r, c, j) as f64;
+            assert_eq!(planes[(r, c, j)], got as f32);
+            assert!(
+                (got - want).abs() <= 1e-4 * want + 1e-9,
+                "pixel {r},{c} plane {j}: {got} vs {want}"
+            );
+        }
+        checked += 1;
+    }
+    assert!(checked > 1000, "only {checked} pixels compared");
+}
