@@ -731,16 +731,29 @@ unsafe fn whiten_block_f32<const D: usize>(
     z: &mut [[f32; D]; BLOCK],
 ) {
     use std::arch::x86_64::*;
-    assert!(D <= 8 && nb > 0 && qt8.len() == nb * 8);
-    for (i, (y, f)) in ys.chunks_exact(nb).zip(flips).enumerate() {
-        prefetch(next.get(i * nb..).unwrap_or(&[]), nb);
-        if *f == SKIP {
+    let n = flips.len().min(ys.len() / nb.max(1));
+    assert!(D <= 8 && nb > 0 && qt8.len() == nb * 8 && ys.len() >= n * nb);
+    let q = qt8.as_ptr();
+    for i in 0..n {
+        // The matching pixel of the next block, line by line (a prefetch never faults, and
+        // the wrapping address is never dereferenced).
+        if (i + 1) * nb <= next.len() {
+            let p = next.as_ptr().wrapping_add(i * nb);
+            let mut off = 0;
+            while off < nb {
+                _mm_prefetch::<_MM_HINT_T0>(p.wrapping_add(off).cast());
+                off += 16;
+            }
+            _mm_prefetch::<_MM_HINT_T0>(p.wrapping_add(nb - 1).cast());
+        }
+        if flips[i] == SKIP {
             continue;
         }
-        let (yp, q) = (y.as_ptr(), qt8.as_ptr());
+        // SAFETY (of the reads): pixel i's nb values lie inside `ys` (asserted), and qt8
+        // has eight values per band.
+        let yp = ys.as_ptr().add(i * nb);
         let mut acc = [_mm256_setzero_ps(); 4];
         let mut b = 0;
-        // SAFETY (of the reads): band b + 7 < nb = y.len(), and qt8 has 8 values per band.
         while b + 8 <= nb {
             for k in 0..8 {
                 let row = _mm256_loadu_ps(q.add((b + k) * 8));
@@ -761,9 +774,13 @@ unsafe fn whiten_block_f32<const D: usize>(
             b += 1;
         }
         let sum = _mm256_add_ps(_mm256_add_ps(acc[0], acc[1]), _mm256_add_ps(acc[2], acc[3]));
-        let mut out = [0.0f32; 8];
-        _mm256_storeu_ps(out.as_mut_ptr(), sum);
-        z[i].copy_from_slice(&out[..D]);
+        if D == 8 {
+            _mm256_storeu_ps(z[i].as_mut_ptr(), sum);
+        } else {
+            let mut out = [0.0f32; 8];
+            _mm256_storeu_ps(out.as_mut_ptr(), sum);
+            z[i].copy_from_slice(&out[..D]);
+        }
     }
 }
 
