@@ -959,29 +959,52 @@ unsafe fn finish_block_f32<const M: usize, const D: usize>(
         rss[i] = total;
         nonzero[i] = positives::<f32, M, true>(a).count_ones();
     }
-    let fits: [Fit; BLOCK] = std::array::from_fn(|i| fit_of(plan, rss[i], nonzero[i]));
-    let planes = plan.planes;
-    for (i, fit) in fits.iter().enumerate().take(blk.ok.len()) {
+    // Noise levels and RMSEs of the whole block in one loop (it vectorises), as `fit_of`.
+    let nbf = nb as f64;
+    let mut rmse = [0.0f32; BLOCK];
+    let mut sigma = [0.0f64; BLOCK];
+    for i in 0..BLOCK {
+        rmse[i] = ((rss[i] / nbf) as f32).sqrt();
+        let dof = (nbf - nonzero[i] as f64 + plan.sum_to_one).max(1.0);
+        sigma[i] = match plan.opts.noise {
+            Some(n) => n,
+            None => ((rss[i] / dof) as f32).sqrt() as f64,
+        };
+    }
+    let (planes, n) = (plan.planes, blk.ok.len());
+    let (ab, sc, ps) = (
+        &mut slots.ab[blk.px0 * planes..(blk.px0 + n) * planes],
+        &mut slots.sc[blk.px0..blk.px0 + n],
+        &mut slots.ps[blk.px0..blk.px0 + n],
+    );
+    let (rm, ac, um) = (
+        &mut slots.rm[blk.px0..blk.px0 + n],
+        &mut slots.ac[blk.px0..blk.px0 + n],
+        &mut slots.um[blk.px0..blk.px0 + n],
+    );
+    let (mut unmixed, mut dark) = (0, 0);
+    for i in 0..n {
         if blk.flips[i] == SKIP {
             continue;
         }
-        let px = blk.px0 + i;
         let a = &blk.a[i];
-        let materials = load(a.as_ptr());
         let sum = tree_sum::<f32, D>(a[..D].try_into().expect("D materials"));
         if sum.is_nan() || (sum as f64) < DARK_LIMIT {
-            counts.dark += 1;
-            slots.blank(px, planes);
+            dark += 1;
+            ab[i * planes..(i + 1) * planes].fill(MaybeUninit::new(f32::NAN));
+            sc[i].write(f32::NAN);
+            ps[i] = 0;
+            rm[i].write(f32::NAN);
             continue;
         }
         let inv = 1.0 / sum as f64;
-        let ab = &mut slots.ab[px * planes..][..D];
-        let ab_v = _mm256_mul_ps(materials, _mm256_set1_ps(inv as f32));
+        let row = &mut ab[i * planes..][..D];
+        let ab_v = _mm256_mul_ps(load(a.as_ptr()), _mm256_set1_ps(inv as f32));
         // SAFETY: the row has D slots; eight-wide stores only when D = 8.
         if D == 8 {
-            _mm256_storeu_ps(ab.as_mut_ptr().cast(), ab_v);
+            _mm256_storeu_ps(row.as_mut_ptr().cast(), ab_v);
         } else {
-            _mm256_maskstore_ps(ab.as_mut_ptr().cast(), lanes, ab_v);
+            _mm256_maskstore_ps(row.as_mut_ptr().cast(), lanes, ab_v);
         }
         if plan.opts.report_shade {
             let shade = if plan.model.shade {
@@ -989,15 +1012,17 @@ unsafe fn finish_block_f32<const M: usize, const D: usize>(
             } else {
                 1.0 - sum as f64
             };
-            slots.ab[px * planes + D].write(shade as f32);
+            ab[i * planes + D].write(shade as f32);
         }
-        slots.sc[px].write((fit.sigma * inv) as f32);
-        slots.ps[px] = blk.passive[i] as u16;
-        slots.rm[px].write(fit.rmse as f32);
-        slots.ac[px] = fit.nonzero as u8;
-        slots.um[px] = true;
-        counts.unmixed += 1;
+        sc[i].write((sigma[i] * inv) as f32);
+        ps[i] = blk.passive[i] as u16;
+        rm[i].write(rmse[i]);
+        ac[i] = nonzero[i] as u8;
+        um[i] = true;
+        unmixed += 1;
     }
+    counts.unmixed += unmixed;
+    counts.dark += dark;
 }
 
 /// A task's pixels on the direct path, a block of [`BLOCK`] pixels at a time in three
