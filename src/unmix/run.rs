@@ -147,6 +147,10 @@ struct Plan<'a, T> {
     /// Qᵀ band-major with each band's row padded to eight values (D ≤ 8; empty otherwise):
     /// one register per band for the AVX2 f32 whitening.
     qt8: Vec<f32>,
+    /// The full set's map from z to x for the AVX2 f32 full-set step: D columns of 16
+    /// values (rows 0..M, zero-padded), then the 16 offsets; empty unless D ≤ 8 and the
+    /// full set is regular.
+    wfull: Vec<f32>,
     /// R's material columns one after another (D values each), for the in-span residual.
     rcol: Vec<f64>,
     /// E's material columns one after another, for the residual.
@@ -195,6 +199,26 @@ impl<'a, T: Real> Plan<'a, T> {
                 .flat_map(|c| (0..mat).flat_map(move |j| (0..8).map(move |t| (c * 8 + t, j))))
                 .map(|(b, j)| cast(model.e[(b, j)]))
                 .collect(),
+            wfull: {
+                let table = T::table(model);
+                let (m, full) = (model.columns(), model.full_mask());
+                if dims <= 8 && table.has(full) {
+                    let raw = table.raw(full);
+                    (0..=dims)
+                        .flat_map(|k| {
+                            (0..16).map(move |i| {
+                                if i < m {
+                                    raw[k * 2 * m + i].widen() as f32
+                                } else {
+                                    0.0
+                                }
+                            })
+                        })
+                        .collect()
+                } else {
+                    Vec::new()
+                }
+            },
             bands: nb,
             mat,
             planes: mat + opts.report_shade as usize,
@@ -571,11 +595,98 @@ fn pass_start<T: Real, const M: usize, const D: usize, const FUSED: bool>(
         &blk.flips,
         &mut blk.z
     );
+    #[cfg(target_arch = "x86_64")]
+    if FUSED && std::mem::size_of::<T>() == 4 && !plan.wfull.is_empty() {
+        // SAFETY: FUSED code runs only after run-time detection of AVX2 and FMA; T is f32
+        // (Real has two types, and only f32 is 4 bytes), so the casts keep the layouts.
+        unsafe {
+            let plan = &*(plan as *const Plan<T>).cast::<Plan<f32>>();
+            let blk = &mut *(blk as *mut Block<T, M, D>).cast::<Block<f32, M, D>>();
+            full_steps_f32(plan, blk);
+        }
+        return;
+    }
     for i in 0..blk.ok.len() {
         if blk.flips[i] != SKIP {
             (blk.a[i], blk.flips[i]) =
                 full_step::<T, M, D, FUSED>(plan.table, &blk.z[i], plan.full, plan.non_negative);
         }
+    }
+}
+
+/// [`full_step`] for a block in f32 with D ≤ 8, AVX2 + FMA written out: x = W z + off in
+/// one register (two for more than eight columns), the same even/odd chains as the
+/// portable evaluation, the tolerance from |z| summed in `tree_sum`'s order, and the
+/// violators from one sign mask.
+///
+/// # Safety
+/// AVX2 and FMA must be available.
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx2,fma,popcnt")]
+unsafe fn full_steps_f32<const M: usize, const D: usize>(
+    plan: &Plan<f32>,
+    blk: &mut Block<f32, M, D>,
+) {
+    use std::arch::x86_64::*;
+    assert!(D <= 8 && M <= 16 && plan.wfull.len() == 16 * (D + 1));
+    let w = plan.wfull.as_ptr();
+    let lanes = |k: usize| {
+        _mm256_cmpgt_epi32(
+            _mm256_set1_epi32(k as i32),
+            _mm256_setr_epi32(0, 1, 2, 3, 4, 5, 6, 7),
+        )
+    };
+    let (zlanes, alanes, hilanes) = (lanes(D), lanes(M), lanes(M.saturating_sub(8)));
+    let abs = _mm256_castsi256_ps(_mm256_set1_epi32(0x7fff_ffff));
+    let scale16 = f32::EPSILON * 16.0;
+    let allowed = if plan.non_negative { plan.full } else { 0 };
+    for i in 0..blk.ok.len() {
+        if blk.flips[i] == SKIP {
+            continue;
+        }
+        let z = &blk.z[i];
+        // SAFETY (of the reads): wfull holds D + 1 rows of 16 values (asserted); z has D
+        // values, read in full only when D = 8.
+        let (mut lo, mut lo_odd) = (_mm256_loadu_ps(w.add(16 * D)), _mm256_setzero_ps());
+        let (mut hi, mut hi_odd) = (_mm256_loadu_ps(w.add(16 * D + 8)), _mm256_setzero_ps());
+        for (k, zk) in z.iter().enumerate() {
+            let zk = _mm256_set1_ps(*zk);
+            let col = w.add(16 * k);
+            if k % 2 == 0 {
+                lo = _mm256_fmadd_ps(_mm256_loadu_ps(col), zk, lo);
+                if M > 8 {
+                    hi = _mm256_fmadd_ps(_mm256_loadu_ps(col.add(8)), zk, hi);
+                }
+            } else {
+                lo_odd = _mm256_fmadd_ps(_mm256_loadu_ps(col), zk, lo_odd);
+                if M > 8 {
+                    hi_odd = _mm256_fmadd_ps(_mm256_loadu_ps(col.add(8)), zk, hi_odd);
+                }
+            }
+        }
+        let (lo, hi) = (_mm256_add_ps(lo, lo_odd), _mm256_add_ps(hi, hi_odd));
+        let zv = if D == 8 {
+            _mm256_loadu_ps(z.as_ptr())
+        } else {
+            _mm256_maskload_ps(z.as_ptr(), zlanes)
+        };
+        let za = _mm256_and_ps(zv, abs);
+        let h = _mm_add_ps(_mm256_castps256_ps128(za), _mm256_extractf128_ps::<1>(za));
+        let h = _mm_add_ps(h, _mm_movehl_ps(h, h));
+        let sum = _mm_cvtss_f32(_mm_add_ss(h, _mm_movehdup_ps(h)));
+        let tol = _mm256_set1_ps(scale16 * (1.0 + sum));
+        let a = blk.a[i].as_mut_ptr();
+        if M >= 8 {
+            _mm256_storeu_ps(a, lo);
+        } else {
+            _mm256_maskstore_ps(a, alanes, lo);
+        }
+        let mut mask = _mm256_movemask_ps(_mm256_add_ps(lo, tol)) as u32;
+        if M > 8 {
+            _mm256_maskstore_ps(a.add(8), hilanes, hi);
+            mask |= (_mm256_movemask_ps(_mm256_add_ps(hi, tol)) as u32) << 8;
+        }
+        blk.flips[i] = mask & allowed;
     }
 }
 
