@@ -14,11 +14,12 @@ Peers (timed in this process, after warm-up; data in memory):
   scipy  - FCLS by scipy.optimize.nnls on the augmented system [d*1^T; E], [d; y] (d = 1e3)
            in a Python loop over a 4,096-pixel subset, extrapolated.
 thiomap   - examples/bench_unmix.rs: f32 end to end (whitening z = Q^T y, active set, residual
-           RMSE, standard errors, outputs allocated and written), 2 threads and 1 thread;
-           median of 9. Run twice: with glibc's default heap trimming (each repeat page-faults
-           its 17 MiB of fresh output planes back in) and with the heap kept between repeats
-           (MALLOC_TRIM_THRESHOLD_/MALLOC_MMAP_THRESHOLD_), which is how numpy's repeated
-           products reuse their output buffers. Both are printed.
+           RMSE, standard errors in their factored form, outputs allocated and written; each
+           result dropped before the next call, as numpy's is), 2 threads and 1 thread;
+           median of 9. Run twice: with glibc's default heap and with the heap kept between
+           repeats (MALLOC_TRIM_THRESHOLD_/MALLOC_MMAP_THRESHOLD_). Both are printed: glibc
+           returns freed memory above its trim threshold to the kernel, and a run whose output
+           planes exceed it page-faults them back in on the next call.
 
 numpy's 2-thread runs, the scipy loop and thiomap's runs alternate over 5 rounds, and each
 ratio is formed within its round, so a change in the shared machine's load lands on both

@@ -320,6 +320,8 @@ fn imager_globe_abundances_match_the_truth_in_subset_mode() {
 #[test]
 fn the_vectorised_kernels_agree_with_the_portable_ones() {
     // The AVX2 + FMA kernels are chosen at run time; the portable ones are their fallback.
+    // (With at most eight materials in f32, the AVX2 path whitens, takes the full-set step
+    // and finishes with intrinsics of its own.)
     // Both run the same code, so they may differ only by the rounding of fused
     // multiply-adds. Up to 11 members, so the eight-at-a-time sign masks of the AVX2 path
     // run with and without values past the last whole eight.
@@ -364,6 +366,42 @@ fn the_vectorised_kernels_agree_with_the_portable_ones() {
                 assert!((x - z).abs() <= 1e-5 * (1.0 + z.abs()) || (x.is_nan() && z.is_nan()));
             }
         }
+    }
+    // A library model with its shade column (one column more than the whitened
+    // dimensions, nine in all), on the demo tile, shade reported.
+    use thiomap::cube::OpenOptions;
+    let path = std::path::Path::new(env!("CARGO_MANIFEST_DIR"))
+        .join("demo-cubes")
+        .join("brimveil-tile-spectrometer24.fits");
+    let cube = thiomap::cube::load(&path, &OpenOptions::default()).unwrap();
+    let lib = thiomap::library::Library::embedded();
+    let r = thiomap::library::resample::resample(&lib, &cube.info.bands).unwrap();
+    let md = Model::build(&r, &UnmixParams::default()).unwrap();
+    assert!(md.shade);
+    let opts = thiomap::unmix::RunOptions {
+        report_shade: true,
+        noise: None,
+        residuals: false,
+    };
+    let run = |vector| thiomap::unmix::unmix_with::<f32>(&cube, &md, &opts, &|_| {}, vector);
+    let (v, p) = (run(true), run(false));
+    assert_eq!(v.unmixed, p.unmixed);
+    assert_eq!(v.active, p.active);
+    assert_eq!(v.errors.passive, p.errors.passive);
+    for (x, z) in v.abundance.iter().zip(p.abundance.iter()) {
+        assert!(
+            (x - z).abs() < 1e-4 || (x.is_nan() && z.is_nan()),
+            "{x} vs {z}"
+        );
+    }
+    for (x, z) in v.stderr().iter().zip(p.stderr().iter()) {
+        assert!(
+            (x - z).abs() <= 1e-4 * z.abs() || (x.is_nan() && z.is_nan()),
+            "{x} vs {z}"
+        );
+    }
+    for (x, z) in v.rmse.iter().zip(p.rmse.iter()) {
+        assert!((x - z).abs() <= 1e-5 * (1.0 + z.abs()) || (x.is_nan() && z.is_nan()));
     }
 }
 
