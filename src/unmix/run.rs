@@ -521,9 +521,29 @@ fn skipped(
     planes: usize,
     counts: &mut Counts,
 ) -> bool {
+    skipped_as(
+        valid,
+        || y.iter().all(|v| *v == 0.0),
+        slots,
+        px,
+        planes,
+        counts,
+    )
+}
+
+/// [`skipped`] with the zero-signal test given.
+#[inline(always)]
+fn skipped_as(
+    valid: bool,
+    zero: impl FnOnce() -> bool,
+    slots: &mut Slots,
+    px: usize,
+    planes: usize,
+    counts: &mut Counts,
+) -> bool {
     if !valid {
         counts.nodata += 1;
-    } else if y.iter().all(|v| *v == 0.0) {
+    } else if zero() {
         counts.zero_signal += 1;
     } else {
         return false;
@@ -581,6 +601,29 @@ fn pass_start<T: Real, const M: usize, const D: usize, const FUSED: bool>(
     counts: &mut Counts,
 ) {
     let nb = plan.bands;
+    #[cfg(target_arch = "x86_64")]
+    if FUSED && std::mem::size_of::<T>() == 4 && !plan.wfull.is_empty() {
+        // SAFETY: FUSED code runs only after run-time detection of AVX2 and FMA; T is f32
+        // (Real has two types, and only f32 is 4 bytes), so the casts keep the layouts.
+        unsafe {
+            let plan = &*(plan as *const Plan<T>).cast::<Plan<f32>>();
+            let blk = &mut *(blk as *mut Block<T, M, D>).cast::<Block<f32, M, D>>();
+            let zero = whiten_block_f32(blk.y, blk.next, nb, &plan.qt8, &mut blk.z);
+            for (i, &ok) in blk.ok.iter().enumerate() {
+                let skip = skipped_as(
+                    ok,
+                    || zero >> i & 1 == 1,
+                    slots,
+                    blk.px0 + i,
+                    plan.planes,
+                    counts,
+                );
+                blk.flips[i] = if skip { SKIP } else { 0 };
+            }
+            full_steps_f32(plan, blk);
+        }
+        return;
+    }
     for (i, (y, &ok)) in blk.y.chunks_exact(nb).zip(blk.ok).enumerate() {
         let skip = skipped(y, ok, slots, blk.px0 + i, plan.planes, counts);
         blk.flips[i] = if skip { SKIP } else { 0 };
@@ -595,17 +638,6 @@ fn pass_start<T: Real, const M: usize, const D: usize, const FUSED: bool>(
         &blk.flips,
         &mut blk.z
     );
-    #[cfg(target_arch = "x86_64")]
-    if FUSED && std::mem::size_of::<T>() == 4 && !plan.wfull.is_empty() {
-        // SAFETY: FUSED code runs only after run-time detection of AVX2 and FMA; T is f32
-        // (Real has two types, and only f32 is 4 bytes), so the casts keep the layouts.
-        unsafe {
-            let plan = &*(plan as *const Plan<T>).cast::<Plan<f32>>();
-            let blk = &mut *(blk as *mut Block<T, M, D>).cast::<Block<f32, M, D>>();
-            full_steps_f32(plan, blk);
-        }
-        return;
-    }
     for i in 0..blk.ok.len() {
         if blk.flips[i] != SKIP {
             (blk.a[i], blk.flips[i]) =
@@ -819,15 +851,18 @@ unsafe fn whiten_avx2<T: Real, const D: usize>(
         // SAFETY: T is f32 (Real has two types, and only f32 is 4 bytes), so [[T; D]; BLOCK]
         // is [[f32; D]; BLOCK]; the caller has AVX2 and FMA.
         let z = &mut *(z as *mut [[T; D]; BLOCK]).cast::<[[f32; D]; BLOCK]>();
-        whiten_block_f32(ys, next, plan.bands, &plan.qt8, flips, z)
+        let _ = flips;
+        whiten_block_f32(ys, next, plan.bands, &plan.qt8, z);
     } else {
         whiten_block::<T, D, true>(ys, next, plan.bands, &plan.qt_t, flips, z)
     }
 }
 
-/// [`whiten_block`] for f32 and D ≤ 8 with AVX2 + FMA written out: one register holds z,
-/// each band adds its padded row of Qᵀ (`qt8`) times the band's value, eight bands per
-/// loop turn over four accumulators (the same order of sums as the portable code).
+/// [`whiten_block`] for f32 and D ≤ 8 with AVX2 + FMA written out, for every pixel of the
+/// block: one register holds z, each band adds its padded row of Qᵀ (`qt8`) times the
+/// band's value, eight bands per loop turn over four accumulators (the same order of sums
+/// as the portable code). Returns the block's zero-signal pixels (bit i: every band ±0),
+/// tested on the same reads.
 ///
 /// # Safety
 /// AVX2 and FMA must be available. (The lengths the reads rely on are asserted.)
@@ -838,14 +873,15 @@ unsafe fn whiten_block_f32<const D: usize>(
     next: &[f32],
     nb: usize,
     qt8: &[f32],
-    flips: &[u32; BLOCK],
     z: &mut [[f32; D]; BLOCK],
-) {
+) -> u32 {
     use std::arch::x86_64::*;
-    let n = flips.len().min(ys.len() / nb.max(1));
+    let n = BLOCK.min(ys.len() / nb.max(1));
+    let magnitude = _mm256_castsi256_ps(_mm256_set1_epi32(0x7fff_ffff));
+    let mut zero = 0u32;
     assert!(D <= 8 && nb > 0 && qt8.len() == nb * 8 && ys.len() >= n * nb);
     let q = qt8.as_ptr();
-    for i in 0..n {
+    for (i, zi) in z.iter_mut().enumerate().take(n) {
         // The matching pixel of the next block, line by line (a prefetch never faults, and
         // the wrapping address is never dereferenced).
         if (i + 1) * nb <= next.len() {
@@ -857,15 +893,16 @@ unsafe fn whiten_block_f32<const D: usize>(
             }
             _mm_prefetch::<_MM_HINT_T0>(p.wrapping_add(nb - 1).cast());
         }
-        if flips[i] == SKIP {
-            continue;
-        }
         // SAFETY (of the reads): pixel i's nb values lie inside `ys` (asserted), and qt8
         // has eight values per band.
         let yp = ys.as_ptr().add(i * nb);
         let mut acc = [_mm256_setzero_ps(); 4];
+        // Zero signal: no bits but signs set in any band (eight bands at a time, the rest
+        // one by one).
+        let (mut bits, mut tail) = (_mm256_setzero_ps(), false);
         let mut b = 0;
         while b + 8 <= nb {
+            bits = _mm256_or_ps(bits, _mm256_loadu_ps(yp.add(b)));
             for k in 0..8 {
                 let row = _mm256_loadu_ps(q.add((b + k) * 8));
                 acc[k % 4] = _mm256_fmadd_ps(row, _mm256_broadcast_ss(&*yp.add(b + k)), acc[k % 4]);
@@ -876,23 +913,29 @@ unsafe fn whiten_block_f32<const D: usize>(
             for (k, acc) in acc.iter_mut().enumerate() {
                 let row = _mm256_loadu_ps(q.add((b + k) * 8));
                 *acc = _mm256_fmadd_ps(row, _mm256_broadcast_ss(&*yp.add(b + k)), *acc);
+                tail |= *yp.add(b + k) != 0.0;
             }
             b += 4;
         }
         while b < nb {
             let row = _mm256_loadu_ps(q.add(b * 8));
             acc[0] = _mm256_fmadd_ps(row, _mm256_broadcast_ss(&*yp.add(b)), acc[0]);
+            tail |= *yp.add(b) != 0.0;
             b += 1;
         }
+        let bits = _mm256_castps_si256(bits);
+        let all_zero = _mm256_testz_si256(bits, _mm256_castps_si256(magnitude)) == 1 && !tail;
+        zero |= (all_zero as u32) << i;
         let sum = _mm256_add_ps(_mm256_add_ps(acc[0], acc[1]), _mm256_add_ps(acc[2], acc[3]));
         if D == 8 {
-            _mm256_storeu_ps(z[i].as_mut_ptr(), sum);
+            _mm256_storeu_ps(zi.as_mut_ptr(), sum);
         } else {
             let mut out = [0.0f32; 8];
             _mm256_storeu_ps(out.as_mut_ptr(), sum);
-            z[i].copy_from_slice(&out[..D]);
+            zi.copy_from_slice(&out[..D]);
         }
     }
+    zero
 }
 
 #[inline(never)]
