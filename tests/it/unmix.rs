@@ -369,15 +369,7 @@ fn the_vectorised_kernels_agree_with_the_portable_ones() {
     }
     // A library model with its shade column (one column more than the whitened
     // dimensions, nine in all), on the demo tile, shade reported.
-    use thiomap::cube::OpenOptions;
-    let path = std::path::Path::new(env!("CARGO_MANIFEST_DIR"))
-        .join("demo-cubes")
-        .join("brimveil-tile-spectrometer24.fits");
-    let cube = thiomap::cube::load(&path, &OpenOptions::default()).unwrap();
-    let lib = thiomap::library::Library::embedded();
-    let r = thiomap::library::resample::resample(&lib, &cube.info.bands).unwrap();
-    let md = Model::build(&r, &UnmixParams::default()).unwrap();
-    assert!(md.shade);
+    let (cube, md) = tile_with_default_model();
     let opts = thiomap::unmix::RunOptions {
         report_shade: true,
         noise: None,
@@ -469,15 +461,7 @@ fn standard_errors_follow_the_constrained_cramer_rao_form() {
     // σ² = RSS / (B − k + 1); the material errors are divided by the material sum, like the
     // abundances, and the shade's is not. Recomputed here pixel by pixel from an f64 solve
     // and `Model::covariance_factor`, apart from the factored form the run keeps.
-    use thiomap::cube::OpenOptions;
-    let path = std::path::Path::new(env!("CARGO_MANIFEST_DIR"))
-        .join("demo-cubes")
-        .join("brimveil-tile-spectrometer24.fits");
-    let cube = thiomap::cube::load(&path, &OpenOptions::default()).unwrap();
-    let lib = thiomap::library::Library::embedded();
-    let r = thiomap::library::resample::resample(&lib, &cube.info.bands).unwrap();
-    let model = Model::build(&r, &UnmixParams::default()).unwrap();
-    assert!(model.shade, "the default model has a shade column");
+    let (cube, model) = tile_with_default_model();
     let opts = thiomap::unmix::RunOptions {
         report_shade: true,
         noise: None,
@@ -523,4 +507,19 @@ fn standard_errors_follow_the_constrained_cramer_rao_form() {
         checked += 1;
     }
     assert!(checked > 1000, "only {checked} pixels compared");
+}
+
+/// The shipped spectrometer tile and the default model for its bands (embedded library,
+/// groups, shade column).
+fn tile_with_default_model() -> (thiomap::cube::Cube, Model) {
+    use thiomap::cube::OpenOptions;
+    let path = std::path::Path::new(env!("CARGO_MANIFEST_DIR"))
+        .join("demo-cubes")
+        .join("brimveil-tile-spectrometer24.fits");
+    let cube = thiomap::cube::load(&path, &OpenOptions::default()).unwrap();
+    let lib = thiomap::library::Library::embedded();
+    let r = thiomap::library::resample::resample(&lib, &cube.info.bands).unwrap();
+    let model = Model::build(&r, &UnmixParams::default()).unwrap();
+    assert!(model.shade, "the default model has a shade column");
+    (cube, model)
 }
