@@ -199,25 +199,19 @@ impl<'a, T: Real> Plan<'a, T> {
                 .flat_map(|c| (0..mat).flat_map(move |j| (0..8).map(move |t| (c * 8 + t, j))))
                 .map(|(b, j)| cast(model.e[(b, j)]))
                 .collect(),
-            wfull: {
-                let table = T::table(model);
-                let (m, full) = (model.columns(), model.full_mask());
-                if dims <= 8 && table.has(full) {
-                    let raw = table.raw(full);
-                    (0..=dims)
-                        .flat_map(|k| {
-                            (0..16).map(move |i| {
-                                if i < m {
-                                    raw[k * 2 * m + i].widen() as f32
-                                } else {
-                                    0.0
-                                }
-                            })
+            wfull: match T::table(model).entry(model.full_mask()) {
+                // Each column's abundance rows (the first M of its 2M), then the offsets'.
+                Some(e) if dims <= 8 => {
+                    let m = model.columns();
+                    e.map
+                        .chunks_exact(2 * m)
+                        .chain([e.off])
+                        .flat_map(|col| {
+                            (0..16).map(move |i| if i < m { col[i].widen() as f32 } else { 0.0 })
                         })
                         .collect()
-                } else {
-                    Vec::new()
                 }
+                _ => Vec::new(),
             },
             bands: nb,
             mat,
@@ -330,36 +324,41 @@ fn direct_rss<T: Real, const D: usize, const FUSED: bool>(
 
 /// [`direct_rss`] for f32 with AVX2 + FMA written out: eight bands per register and every
 /// material's multiply-add on them (LLVM's vectoriser packed the portable loop two lanes
-/// wide).
+/// wide). `chunks` holds E eight bands by eight bands, `ecol` its material columns.
+/// Inlined into both of its callers, AVX2 + FMA functions themselves (a target-feature
+/// function of its own was not inlined into the finishing pass: 26 more instructions per
+/// pixel).
 ///
 /// # Safety
 /// AVX2 and FMA must be available. (The lengths the reads rely on are asserted.)
 #[cfg(target_arch = "x86_64")]
-#[target_feature(enable = "avx2,fma")]
-unsafe fn direct_rss_f32(y: &[f32], a: &[f32], chunks: &[f32], ecol: &[f32]) -> f64 {
+#[inline(always)]
+unsafe fn direct_rss_f32<const D: usize>(
+    y: &[f32],
+    a: &[f32; D],
+    chunks: &[f32],
+    ecol: &[f32],
+) -> f64 {
     use std::arch::x86_64::*;
-    let (nb, d) = (y.len(), a.len());
+    let nb = y.len();
     let full = nb / 8;
-    assert!(chunks.len() >= full * 8 * d && ecol.len() >= nb * d && d <= 16);
-    let mut neg = [_mm256_setzero_ps(); 16];
-    for (n, v) in neg.iter_mut().zip(a) {
-        *n = _mm256_set1_ps(-v);
-    }
+    assert!(chunks.len() >= full * 8 * D && ecol.len() >= nb * D);
+    let am: [__m256; D] = std::array::from_fn(|j| _mm256_set1_ps(a[j]));
     let mut acc = _mm256_setzero_ps();
     for c in 0..full {
-        // SAFETY (of the reads): band c·8 + 7 < nb, and chunk c has d × 8 values.
+        // SAFETY (of the reads): band c·8 + 7 < nb, and chunk c has D × 8 values.
         let mut r = _mm256_loadu_ps(y.as_ptr().add(c * 8));
-        let base = chunks.as_ptr().add(c * 8 * d);
-        for (j, n) in neg.iter().enumerate().take(d) {
-            r = _mm256_fmadd_ps(_mm256_loadu_ps(base.add(j * 8)), *n, r);
+        let base = chunks.as_ptr().add(c * 8 * D);
+        for (j, aj) in am.iter().enumerate() {
+            r = _mm256_fnmadd_ps(_mm256_loadu_ps(base.add(j * 8)), *aj, r);
         }
         acc = _mm256_fmadd_ps(r, r, acc);
     }
     let mut lanes = [0.0f32; 8];
     _mm256_storeu_ps(lanes.as_mut_ptr(), acc);
     let mut rss = tree_sum(lanes) as f64;
-    for b in full * 8..nb {
-        let mut r = y[b];
+    for (b, yv) in y.iter().enumerate().skip(full * 8) {
+        let mut r = *yv;
         for (j, aj) in a.iter().enumerate() {
             r = ecol[j * nb + b].mul_add(-aj, r);
         }
@@ -847,15 +846,7 @@ unsafe fn whiten_avx2<T: Real, const D: usize>(
     flips: &[u32; BLOCK],
     z: &mut [[T; D]; BLOCK],
 ) {
-    if std::mem::size_of::<T>() == 4 && D <= 8 {
-        // SAFETY: T is f32 (Real has two types, and only f32 is 4 bytes), so [[T; D]; BLOCK]
-        // is [[f32; D]; BLOCK]; the caller has AVX2 and FMA.
-        let z = &mut *(z as *mut [[T; D]; BLOCK]).cast::<[[f32; D]; BLOCK]>();
-        let _ = flips;
-        whiten_block_f32(ys, next, plan.bands, &plan.qt8, z);
-    } else {
-        whiten_block::<T, D, true>(ys, next, plan.bands, &plan.qt_t, flips, z)
-    }
+    whiten_block::<T, D, true>(ys, next, plan.bands, &plan.qt_t, flips, z)
 }
 
 /// [`whiten_block`] for f32 and D ≤ 8 with AVX2 + FMA written out, for every pixel of the
@@ -956,7 +947,8 @@ unsafe fn rss_avx2<T: Real, const D: usize>(
         // SAFETY: T is f32 (Real has two types, and only f32 is 4 bytes); the caller has
         // AVX2 and FMA; `chunks` is the plan's, built for these bands and materials.
         let cast = |v: &[T]| std::slice::from_raw_parts(v.as_ptr().cast::<f32>(), v.len());
-        direct_rss_f32(y, cast(a), cast(chunks), cast(ecol))
+        let a = &*(a as *const [T; D]).cast::<[f32; D]>();
+        direct_rss_f32(y, a, cast(chunks), cast(ecol))
     } else {
         direct_rss::<T, D, true>(y, a, chunks, ecol)
     }
@@ -1067,8 +1059,7 @@ unsafe fn finish_block_f32<const M: usize, const D: usize>(
 ) {
     use std::arch::x86_64::*;
     let nb = plan.bands;
-    let full = nb / 8;
-    assert!(D <= 8 && M >= D && plan.echunks.len() == full * 8 * D && plan.ecol.len() == nb * D);
+    assert!(D <= 8 && M >= D);
     // Lane j < D of a register holds material j; the rest are masked off.
     let lanes = _mm256_cmpgt_epi32(
         _mm256_set1_epi32(D as i32),
@@ -1089,28 +1080,12 @@ unsafe fn finish_block_f32<const M: usize, const D: usize>(
             continue;
         }
         let a = &blk.a[i];
-        let am: [__m256; D] = std::array::from_fn(|j| _mm256_set1_ps(a[j]));
-        let mut acc = _mm256_setzero_ps();
-        for c in 0..full {
-            // SAFETY (of the reads): band c·8 + 7 < nb, and chunk c holds D × 8 values.
-            let mut r = _mm256_loadu_ps(y.as_ptr().add(c * 8));
-            let base = plan.echunks.as_ptr().add(c * 8 * D);
-            for (j, aj) in am.iter().enumerate() {
-                r = _mm256_fnmadd_ps(_mm256_loadu_ps(base.add(j * 8)), *aj, r);
-            }
-            acc = _mm256_fmadd_ps(r, r, acc);
-        }
-        let mut sums = [0.0f32; 8];
-        _mm256_storeu_ps(sums.as_mut_ptr(), acc);
-        let mut total = tree_sum(sums) as f64;
-        for (b, yv) in y.iter().enumerate().skip(full * 8) {
-            let mut r = *yv;
-            for (j, aj) in a.iter().take(D).enumerate() {
-                r = plan.ecol[j * nb + b].mul_add(-aj, r);
-            }
-            total += (r as f64) * (r as f64);
-        }
-        rss[i] = total;
+        rss[i] = direct_rss_f32::<D>(
+            y,
+            a[..D].try_into().expect("D materials"),
+            &plan.echunks,
+            &plan.ecol,
+        );
         nonzero[i] = positives::<f32, M, true>(a).count_ones();
     }
     // Noise levels and RMSEs of the whole block in one loop (it vectorises), as `fit_of`.
@@ -1532,12 +1507,9 @@ pub fn unmix_with<T: Real>(
             scale: Array2::from_shape_vec((rows, cols), sc).expect("sized above"),
             passive,
             factors: (0..1u32 << plan.table.columns)
-                .flat_map(|set| {
-                    let sd = &plan.table.raw(set)[2 * plan.table.columns * (plan.table.dims + 1)..]
-                        [..plan.table.columns];
-                    let ok = plan.table.has(set);
-                    sd.iter()
-                        .map(move |v| if ok { v.widen() as f32 } else { f32::NAN })
+                .flat_map(|set| match plan.table.entry(set) {
+                    Some(e) => e.sd.iter().map(|v| v.widen() as f32).collect(),
+                    None => vec![f32::NAN; plan.table.columns],
                 })
                 .collect(),
             columns: plan.table.columns,
