@@ -85,7 +85,7 @@ fn bench(c: &mut Criterion) {
     for (name, sparse) in [("dense", false), ("sparse", true)] {
         let (model, cube) = problem(sparse);
         group.bench_function(format!("{name}/{B}x{M}x{}", SIDE * SIDE), |bch| {
-            bch.iter(|| unmix::<f32>(&cube, &model, &opts, &|_| {}))
+            bch.iter(|| unmix::<f32>(cube.data.view(), cube.valid.view(), &model, &opts, &|_| {}))
         });
     }
     group.finish();

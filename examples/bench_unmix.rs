@@ -39,7 +39,13 @@ fn main() -> anyhow::Result<()> {
         // The previous result goes first, as numpy's product is discarded between calls.
         drop(out.take());
         let t = Instant::now();
-        out = Some(unmix::<f32>(&cube, &model, &opts, &|_| {}));
+        out = Some(unmix::<f32>(
+            cube.data.view(),
+            cube.valid.view(),
+            &model,
+            &opts,
+            &|_| {},
+        ));
         times.push(t.elapsed().as_secs_f64());
     }
     times.sort_by(f64::total_cmp);
@@ -54,7 +60,7 @@ fn main() -> anyhow::Result<()> {
             }
         }
     }
-    let peak = thiomap::output::results::peak_rss_bytes();
+    let peak = thiomap::results::peak_rss_bytes();
     println!(
         "{{\"seconds\": {median:.5}, \"fastest_seconds\": {fastest:.5}, \"pixels_per_s\": {:.1}, \"abundance_rmse\": {:.5}, \"peak_rss_bytes\": {peak}, \"enumerated\": {}, \"steps_per_pixel\": {:.3}}}",
         (h * w) as f64 / median,

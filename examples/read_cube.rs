@@ -23,7 +23,7 @@ fn main() -> anyhow::Result<()> {
     let checksum: f64 = cube.data.iter().step_by(4099).map(|v| *v as f64).sum();
     println!(
         "{{\"seconds\": {seconds:.4}, \"peak_rss_bytes\": {}, \"cube_f32_bytes\": {}, \"checksum\": {checksum}}}",
-        thiomap::output::results::peak_rss_bytes(),
+        thiomap::results::peak_rss_bytes(),
         cube.info.f32_bytes()
     );
     Ok(())

@@ -54,26 +54,6 @@ fn walk_results(root: &Path, dir: &Path, out: &mut Vec<(String, PathBuf)>) {
     }
 }
 
-fn bookkeeping(dir: &Path, prefix: &str, ext: &str) -> Vec<PathBuf> {
-    let mut v: Vec<PathBuf> = std::fs::read_dir(dir)
-        .map(|rd| {
-            rd.flatten()
-                .map(|e| e.path())
-                .filter(|p| {
-                    p.file_name()
-                        .map(|n| {
-                            let n = n.to_string_lossy();
-                            n.starts_with(prefix) && n.ends_with(ext)
-                        })
-                        .unwrap_or(false)
-                })
-                .collect()
-        })
-        .unwrap_or_default();
-    v.sort();
-    v
-}
-
 /// Merges the results under `dirs` (batch output folders).
 pub fn merge(dirs: &[PathBuf]) -> anyhow::Result<Archive> {
     use anyhow::Context as _;
@@ -125,32 +105,18 @@ pub fn merge(dirs: &[PathBuf]) -> anyhow::Result<Archive> {
                 },
             );
         }
-        for f in bookkeeping(dir, "failures", ".csv") {
-            let mut r = csv::Reader::from_path(&f).with_context(|| format!("{}", f.display()))?;
-            for rec in r.records() {
-                let rec = rec.with_context(|| format!("{}", f.display()))?;
-                let cube = rec.get(0).unwrap_or("").to_string();
-                let reason = format!("{}: {}", rec.get(1).unwrap_or(""), rec.get(2).unwrap_or(""));
-                rows.entry(cube.clone()).or_insert(Row {
-                    cube,
-                    status: "failed".into(),
-                    areas: BTreeMap::new(),
-                    means: BTreeMap::new(),
-                    mean_rmse: None,
-                    time: None,
-                    reason: Some(reason),
-                });
-            }
+        for f in super::books::read_failures(dir)? {
+            rows.entry(f.path.clone()).or_insert(Row {
+                cube: f.path,
+                status: "failed".into(),
+                areas: BTreeMap::new(),
+                means: BTreeMap::new(),
+                mean_rmse: None,
+                time: None,
+                reason: Some(format!("{}: {}", f.stage, f.reason)),
+            });
         }
-        for f in bookkeeping(dir, "manifest", ".txt") {
-            let text = std::fs::read_to_string(&f).with_context(|| format!("{}", f.display()))?;
-            listed.extend(
-                text.lines()
-                    .map(str::trim)
-                    .filter(|l| !l.is_empty())
-                    .map(String::from),
-            );
-        }
+        listed.extend(super::books::read_listed(dir)?);
     }
     for cube in listed {
         rows.entry(cube.clone()).or_insert(Row {

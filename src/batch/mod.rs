@@ -1,6 +1,7 @@
 //! Archive runs: finding cubes under a folder or in a manifest, partitioning them into
-//! shards, deciding which results are already complete, and the bookkeeping files. The
-//! per-cube work is [`crate::pipeline::map_cube`]; the command line drives the workers.
+//! shards and deciding which results are already complete (here); running the workers
+//! ([`run`]); the bookkeeping files ([`books`]); merging results ([`merge`]). The per-cube
+//! work is [`crate::pipeline::run_cube`]; the command line only parses flags and draws.
 //!
 //! - **Entries** are cube paths relative to the archive, sorted, so every machine sees the
 //!   same list. A cube's results folder is `OUT/<relative path including the file name>`,
@@ -12,11 +13,13 @@
 //!   file's SHA-256, the library's hash and the recipe. A folder whose `run.json` carries
 //!   the same key is complete and skipped; any other is redone.
 
+pub mod books;
 pub mod merge;
+pub mod run;
 
 use std::path::{Component, Path, PathBuf};
 
-use crate::recipe::Recipe;
+use crate::recipe::CheckedRecipe;
 
 /// One cube of the archive.
 #[derive(Debug, Clone, PartialEq, Eq)]
@@ -259,18 +262,14 @@ pub fn is_complete(dir: &Path, expected: &serde_json::Value) -> bool {
 }
 
 /// The key fields of a cube's result, computed without running it.
-pub fn expected_key(cube: &Path, recipe: &Recipe) -> anyhow::Result<serde_json::Value> {
+pub fn expected_key(cube: &Path, recipe: &CheckedRecipe) -> anyhow::Result<serde_json::Value> {
+    use crate::results::provenance;
     let reader = crate::cube::open(cube, &Default::default())?;
-    let library = recipe.load_library()?;
     Ok(serde_json::json!({
         "version": crate::VERSION,
-        "inputs": crate::output::results::input_records(&reader.info().inputs)?,
-        "library": {
-            "name": library.name,
-            "version": library.version,
-            "sha256": library.sha256(),
-        },
-        "recipe": recipe,
+        "inputs": provenance::input_records(&reader.info().inputs)?,
+        "library": provenance::library_record(recipe.library()),
+        "recipe": recipe.recipe(),
     }))
 }
 

@@ -1,17 +1,15 @@
 //! `thiomap batch ARCHIVE --out DIR`: the main job over every cube of an archive, with
-//! parallel workers, failure isolation, resumption and shards; and `thiomap merge`.
+//! parallel workers, failure isolation, resumption and shards. This file holds the flags,
+//! the progress bar and the summary line; the run itself is [`thiomap::batch::run`].
 
 use std::path::PathBuf;
 use std::process::ExitCode;
-use std::sync::atomic::{AtomicUsize, Ordering};
-use std::sync::Mutex;
 
 use anyhow::Context as _;
 use indicatif::{ProgressBar, ProgressDrawTarget, ProgressStyle};
-use thiomap::batch::{self, Shard};
-use thiomap::output::results;
-use thiomap::pipeline::{self, Progress};
-use thiomap::recipe::Recipe;
+use thiomap::batch::{self, run::Plan, Shard};
+use thiomap::pipeline::Progress;
+use thiomap::recipe::{Draft, Scope};
 
 /// Run the main job on every cube of an archive (resumable, shardable).
 #[derive(Debug, clap::Args)]
@@ -50,29 +48,26 @@ pub struct Args {
     shard: Option<String>,
 }
 
-/// Progress of one cube's stages: silent (the batch bar speaks); warnings are kept.
-struct Quiet<'a> {
-    bar: &'a ProgressBar,
-    cube: String,
-}
+/// The batch's progress bar: cubes done, failures so far, warnings printed above it.
+struct CubesBar(ProgressBar);
 
-impl Progress for Quiet<'_> {
-    fn stage(&self, _: &str, _: Option<usize>) {}
-    fn rows(&self, _: usize) {}
+impl Progress for CubesBar {
+    fn stage(&self, _: &str, total: Option<usize>) {
+        self.0.set_length(total.unwrap_or(0) as u64);
+    }
+    fn rows(&self, done: usize) {
+        self.0.set_position(done as u64);
+    }
     fn warn(&self, message: &str) {
-        self.bar
-            .suspend(|| eprintln!("thiomap: warning: {}: {message}", self.cube));
+        self.0.suspend(|| eprintln!("thiomap: warning: {message}"));
+    }
+    fn failures(&self, count: usize) {
+        self.0.set_message(format!("{count} failed"));
     }
 }
 
 pub fn run(a: Args) -> anyhow::Result<ExitCode> {
-    let recipe = match &a.recipe {
-        Some(p) => Recipe::load(p).map_err(anyhow::Error::msg)?,
-        None => Recipe::default(),
-    };
-    recipe.unmix_params().map_err(anyhow::Error::msg)?;
-    recipe.unit_params().map_err(anyhow::Error::msg)?;
-    recipe.load_rules().map_err(anyhow::Error::msg)?;
+    let recipe = Draft::new(a.recipe.as_deref())?.check(Scope::Map)?;
     if !a.archive.is_dir() {
         anyhow::bail!("{}: the archive is not a folder", a.archive.display());
     }
@@ -94,168 +89,59 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
         None => all,
     };
     let threads = super::common::thread_count(a.threads)?;
+    if a.workers == Some(0) {
+        anyhow::bail!("--workers 0: at least one worker is needed");
+    }
     let workers = a
         .workers
         .unwrap_or(threads)
         .max(1)
         .min(entries.len().max(1));
-    if a.workers == Some(0) {
-        anyhow::bail!("--workers 0: at least one worker is needed");
-    }
     let _ = rayon::ThreadPoolBuilder::new()
         .num_threads(threads)
         .build_global();
-    std::fs::create_dir_all(&a.out)
-        .with_context(|| format!("{}: cannot create", a.out.display()))?;
-    // Bookkeeping temporaries a killed batch left at the top (cube folders clean their own).
-    for e in std::fs::read_dir(&a.out)?.flatten() {
-        let p = e.path();
-        if p.is_file() && thiomap::output::atomic::is_temporary(&e.file_name().to_string_lossy()) {
-            let _ = std::fs::remove_file(p);
-        }
-    }
-    let tag = shard.map(|s| format!("-{}", s.tag())).unwrap_or_default();
-    let manifest_text: String = entries
-        .iter()
-        .map(|e| format!("{}\n", e.relative.display()))
-        .collect();
-    results::write_json(
-        &a.out.join(format!("batch{tag}.json")),
-        &serde_json::json!({
-            "archive": a.archive.display().to_string(),
-            "shard": shard.map(|s| [s.k, s.n]),
-            "cubes": entries.len(),
-            "recipe": recipe,
-        }),
-    )?;
-    thiomap::output::atomic::write_bytes(
-        &a.out.join(format!("manifest{tag}.txt")),
-        manifest_text.as_bytes(),
-    )?;
+    let plan = Plan {
+        archive: a.archive.clone(),
+        out: a.out.clone(),
+        entries,
+        rejected,
+        shard,
+        workers,
+        threads,
+    };
 
-    let bar =
-        ProgressBar::with_draw_target(Some(entries.len() as u64), ProgressDrawTarget::stderr());
+    let bar = ProgressBar::with_draw_target(
+        Some(plan.entries.len() as u64),
+        ProgressDrawTarget::stderr(),
+    );
     bar.set_style(
         ProgressStyle::with_template("{bar:30} {pos}/{len} cubes, {msg} [{elapsed}, ETA {eta}]")
             .expect("a valid template")
             .progress_chars("=> "),
     );
     bar.set_message("0 failed");
-    let failures: Mutex<Vec<(String, String, String)>> = Mutex::new(
-        rejected
-            .iter()
-            .map(|r| (r.entry.clone(), "manifest".to_string(), r.reason.clone()))
-            .collect(),
-    );
-    let next = AtomicUsize::new(0);
-    let skipped = AtomicUsize::new(0);
-    std::thread::scope(|scope| {
-        for _ in 0..workers {
-            scope.spawn(|| loop {
-                let i = next.fetch_add(1, Ordering::SeqCst);
-                let Some(entry) = entries.get(i) else { break };
-                let cube = a.archive.join(&entry.relative);
-                let dir = batch::result_dir(&a.out, entry);
-                let name = entry.relative.display().to_string();
-                let outcome = (|| -> Result<bool, (String, String)> {
-                    let key = batch::expected_key(&cube, &recipe)
-                        .map_err(|e| ("read".to_string(), format!("{e:#}")))?;
-                    if batch::is_complete(&dir, &key) {
-                        return Ok(false);
-                    }
-                    results::prepare(&dir, true)
-                        .map_err(|e| ("write".to_string(), e.to_string()))?;
-                    let quiet = Quiet {
-                        bar: &bar,
-                        cube: name.clone(),
-                    };
-                    pipeline::map_cube(&cube, None, &dir, &recipe, threads, &quiet)
-                        .map_err(|e| (e.stage.to_string(), format!("{:#}", e.error)))?;
-                    Ok(true)
-                })();
-                match outcome {
-                    Ok(false) => {
-                        skipped.fetch_add(1, Ordering::SeqCst);
-                    }
-                    Ok(true) => {}
-                    Err((stage, reason)) => {
-                        let mut f = failures.lock().expect("not poisoned");
-                        f.push((name, stage, reason));
-                        bar.set_message(format!("{} failed", f.len()));
-                    }
-                }
-                bar.inc(1);
-            });
-        }
-    });
-    bar.finish_and_clear();
-    let mut failures = failures.into_inner().expect("not poisoned");
-    failures.sort();
-    let mut w = csv::Writer::from_writer(Vec::new());
-    w.write_record(["path", "stage", "reason"])?;
-    for (p, s, r) in &failures {
-        w.write_record([p, s, r])?;
-    }
-    thiomap::output::atomic::write_bytes(
-        &a.out.join(format!("failures{tag}.csv")),
-        &w.into_inner()?,
-    )?;
-    let n = entries.len();
-    let s = skipped.load(Ordering::SeqCst);
+    let bar = CubesBar(bar);
+    let report = batch::run::execute(&plan, &recipe, &bar);
+    bar.0.finish_and_clear();
+    let report = report?;
+    let failed = report.failures.len();
     eprintln!(
-        "batch: {n} cubes{}: {} mapped, {s} already complete, {} failed{}",
+        "batch: {} cubes{}: {} mapped, {} already complete, {failed} failed{}",
+        report.cubes,
         shard
             .map(|s| format!(" (shard {} of {})", s.k, s.n))
             .unwrap_or_default(),
-        n - s - failures.iter().filter(|f| f.1 != "manifest").count(),
-        failures.len(),
-        if failures.is_empty() {
+        report.mapped(),
+        report.skipped,
+        if failed == 0 {
             String::new()
         } else {
-            format!(
-                " (see {})",
-                a.out.join(format!("failures{tag}.csv")).display()
-            )
+            format!(" (see {})", report.failures_file.display())
         }
     );
-    Ok(if failures.is_empty() {
+    Ok(if failed == 0 {
         ExitCode::SUCCESS
     } else {
         ExitCode::from(1)
     })
-}
-
-/// Merge batch results into one archive table, its JSON and a chart.
-#[derive(Debug, clap::Args)]
-#[command(after_help = "Example:\n  thiomap merge results/ --out archive/\n\n\
-    Writes archive.csv (cube, status, area_<class>…, mean_<id>…, mean_rmse), archive.json \
-    and archive-classes.svg; joins the shards' failure lists and lists every manifest entry \
-    that has no result.")]
-pub struct MergeArgs {
-    /// Batch output folders (shards may write to one or several).
-    #[arg(value_name = "DIR", required = true)]
-    dirs: Vec<PathBuf>,
-    /// The folder for archive.csv, archive.json and the chart.
-    #[arg(long, value_name = "FOLDER")]
-    out: PathBuf,
-}
-
-pub fn merge(a: MergeArgs) -> anyhow::Result<ExitCode> {
-    let archive = batch::merge::merge(&a.dirs)?;
-    std::fs::create_dir_all(&a.out)
-        .with_context(|| format!("{}: cannot create", a.out.display()))?;
-    thiomap::output::atomic::write_bytes(&a.out.join("archive.csv"), &archive.to_csv()?)?;
-    results::write_json(&a.out.join("archive.json"), &archive)?;
-    let svg = archive.chart_svg().map_err(anyhow::Error::msg)?;
-    thiomap::output::atomic::write_bytes(&a.out.join("archive-classes.svg"), svg.as_bytes())?;
-    let count = |s: &str| archive.rows.iter().filter(|r| r.status == s).count();
-    eprintln!(
-        "merged {} cubes into {}: {} ok, {} failed, {} missing",
-        archive.rows.len(),
-        a.out.display(),
-        count("ok"),
-        count("failed"),
-        count("missing")
-    );
-    Ok(ExitCode::SUCCESS)
 }

@@ -112,3 +112,23 @@ impl ThreadArgs {
         Ok(n)
     }
 }
+
+/// A word flag's typed value (clap has already checked the word).
+pub fn word<T>(given: &Option<String>, parse: fn(&str) -> Option<T>) -> Option<T> {
+    given.as_deref().and_then(parse)
+}
+
+/// A count flag's typed value: a number or its word (`auto`, `all`).
+pub fn count<T>(
+    flag: &str,
+    word: &str,
+    given: &Option<String>,
+    parse: fn(&str) -> Option<T>,
+) -> anyhow::Result<Option<T>> {
+    given
+        .as_deref()
+        .map(|v| {
+            parse(v).ok_or_else(|| anyhow::anyhow!("{flag} {v}: expected a number or \"{word}\""))
+        })
+        .transpose()
+}

@@ -6,8 +6,8 @@ use std::path::PathBuf;
 use std::process::ExitCode;
 
 use anyhow::bail;
+use thiomap::atomic::WriteError;
 use thiomap::cube;
-use thiomap::output::OutputError;
 
 /// Rewrite a cube as FITS or as .npy with a TOML sidecar.
 #[derive(Debug, clap::Args)]
@@ -60,7 +60,7 @@ pub fn run(args: Args) -> anyhow::Result<ExitCode> {
     }
     if !args.overwrite {
         if let Some(existing) = outputs.iter().find(|p| p.exists()) {
-            return Err(OutputError::Exists {
+            return Err(WriteError::Exists {
                 path: existing.clone(),
             }
             .into());

@@ -6,10 +6,10 @@ use std::path::PathBuf;
 use std::process::ExitCode;
 
 use anyhow::bail;
+use thiomap::atomic::WriteError;
 use thiomap::cube::bandsets;
 use thiomap::demo::files::{scene_files, write_scene, CubeFormat};
 use thiomap::demo::{generate, Law, SceneKind, SceneParams};
-use thiomap::output::OutputError;
 use thiomap::render::maps;
 
 use super::common::{BandArgs, LibraryArgs};
@@ -123,7 +123,7 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     files.push(preview.clone());
     if !a.overwrite {
         if let Some(existing) = files.iter().find(|p| p.exists()) {
-            return Err(OutputError::Exists {
+            return Err(WriteError::Exists {
                 path: existing.clone(),
             }
             .into());
@@ -188,7 +188,7 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
         &command,
     )?;
     let (img, false_colour) = maps::true_colour(&scene.cube);
-    thiomap::output::atomic::write_bytes(&preview, &maps::png_bytes(&img))?;
+    thiomap::atomic::write_bytes(&preview, &maps::png_bytes(&img))?;
     let surface = scene.cube.valid.iter().filter(|v| **v).count();
     eprintln!(
         "wrote {} ({} × {} × {} bands, {surface} surface pixels) with its truth and a {} preview",

@@ -7,13 +7,13 @@ use std::process::ExitCode;
 
 use anyhow::{bail, Context as _};
 use serde::Serialize;
+use thiomap::atomic::WriteError;
+use thiomap::colour::{hex, ColourMatrix};
 use thiomap::cube::bandsets;
 use thiomap::library::diagnostics::{diagnose, DEFAULT_GROUP_ANGLE_DEG};
 use thiomap::library::import::{import_csv, ImportOptions, WavelengthUnit};
 use thiomap::library::resample::resample;
 use thiomap::library::{Class, Library, Source, SourceTag};
-use thiomap::output::OutputError;
-use thiomap::render::colour::{hex, ColourMatrix};
 use thiomap::render::plot::{write_plot, Series, SpectrumPlot, Strip};
 
 use super::common::{BandArgs, LibraryArgs};
@@ -368,7 +368,7 @@ fn export(a: ExportArgs) -> anyhow::Result<ExitCode> {
     }
     if let Some(out) = &a.out {
         if out.exists() {
-            return Err(OutputError::Exists { path: out.clone() }.into());
+            return Err(WriteError::Exists { path: out.clone() }.into());
         }
     }
     let lib = a.library.load()?;
@@ -413,7 +413,7 @@ fn export(a: ExportArgs) -> anyhow::Result<ExitCode> {
     }
     let bytes = w.into_inner().context("writing CSV")?;
     match &a.out {
-        Some(path) => thiomap::output::atomic::write_bytes(path, &bytes)?,
+        Some(path) => thiomap::atomic::write_bytes(path, &bytes)?,
         None => super::print_stdout(&String::from_utf8(bytes)?)?,
     }
     Ok(ExitCode::SUCCESS)
@@ -484,7 +484,7 @@ fn plot(a: PlotArgs) -> anyhow::Result<ExitCode> {
         );
     }
     if a.out.exists() && !a.overwrite {
-        return Err(OutputError::Exists {
+        return Err(WriteError::Exists {
             path: a.out.clone(),
         }
         .into());

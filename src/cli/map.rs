@@ -3,10 +3,10 @@
 
 use std::process::ExitCode;
 
-use thiomap::output::results;
-use thiomap::pipeline;
-use thiomap::recipe::{Count, Recipe};
+use thiomap::pipeline::{self, Job};
+use thiomap::recipe::{Clustering, Draft, SampleSize, Scope, UnitCount};
 
+use super::common::count;
 use super::progress::Bar;
 use super::unmix::UnmixArgs;
 
@@ -61,63 +61,67 @@ pub struct Args {
     with_rmse: bool,
 }
 
-fn count(s: &str) -> Count {
-    s.parse::<usize>()
-        .map(Count::N)
-        .unwrap_or_else(|_| Count::Word(s.to_string()))
-}
-
 impl Args {
-    fn recipe(&self) -> anyhow::Result<Recipe> {
-        let mut r = self.unmix.recipe()?;
-        if let Some(u) = &self.units {
-            r.units = count(u);
-        }
-        if let Some(k) = self.max_units {
-            r.max_units = k;
-        }
-        if let Some(s) = &self.sample {
-            r.sample = count(s);
-        }
-        if let Some(a) = self.min_area {
-            r.min_area = a;
-        }
-        if let Some(p) = &self.rules {
-            r.rules = p.display().to_string();
-        }
-        if let Some(s) = self.seed {
-            r.seed = s;
-        }
-        if let Some(m) = &self.method {
-            r.method = m.clone();
-        }
-        if let Some(e) = self.eps {
-            r.eps = e;
-        }
-        if let Some(n) = self.min_points {
-            r.min_points = n;
-        }
-        if self.with_albedo {
-            r.albedo_feature = true;
-        }
-        if self.with_rmse {
-            r.rmse_feature = true;
-        }
-        r.unit_params().map_err(anyhow::Error::msg)?;
-        r.load_rules().map_err(anyhow::Error::msg)?;
-        Ok(r)
+    /// The flag table of the units keys, over the unmixing ones (one line per flag).
+    fn draft(&self) -> anyhow::Result<Draft> {
+        let mut d = self.unmix.draft()?;
+        d.flag(
+            "units",
+            "--units",
+            count("--units", "auto", &self.units, UnitCount::parse)?,
+            |r, v| r.units = v,
+        );
+        d.flag("max_units", "--max-units", self.max_units, |r, v| {
+            r.max_units = v
+        });
+        d.flag(
+            "sample",
+            "--sample",
+            count("--sample", "all", &self.sample, SampleSize::parse)?,
+            |r, v| r.sample = v,
+        );
+        d.flag("min_area", "--min-area", self.min_area, |r, v| {
+            r.min_area = v
+        });
+        d.flag("rules", "--rules", self.rules.as_ref(), |r, p| {
+            r.rules = p.display().to_string()
+        });
+        d.flag("seed", "--seed", self.seed, |r, v| r.seed = v);
+        d.flag(
+            "method",
+            "--method",
+            self.method.as_deref().and_then(Clustering::parse),
+            |r, v| r.method = v,
+        );
+        d.flag("eps", "--eps", self.eps, |r, v| r.eps = v);
+        d.flag("min_points", "--min-points", self.min_points, |r, v| {
+            r.min_points = v
+        });
+        d.flag(
+            "albedo_feature",
+            "--with-albedo",
+            self.with_albedo.then_some(true),
+            |r, v| r.albedo_feature = v,
+        );
+        d.flag(
+            "rmse_feature",
+            "--with-rmse",
+            self.with_rmse.then_some(true),
+            |r, v| r.rmse_feature = v,
+        );
+        Ok(d)
     }
 }
 
 pub fn run(args: Args) -> anyhow::Result<ExitCode> {
-    let recipe = args.recipe()?;
+    let recipe = args.draft()?.check(Scope::Map)?;
     let a = &args.unmix;
     let threads = a.threads.init()?;
-    results::prepare(&a.out, a.overwrite)?;
+    let to = a.destination()?;
     let bar = Bar::new();
-    let map = pipeline::map_cube(&a.cube, a.hdu.clone(), &a.out, &recipe, threads, &bar);
+    let done = pipeline::run_cube(Job::Map, &a.cube, a.hdu.clone(), to, &recipe, threads, &bar);
     bar.finish();
-    let map = map.map_err(|e| e.error)?;
+    let map = done.map_err(|e| e.error)?.units.expect("map makes units");
     eprintln!("mapped {} units into {}:", map.units.len(), a.out.display());
     // Columns as wide as their longest entry, so the areas line up.
     let name_w = map

@@ -8,6 +8,7 @@ mod demo;
 mod inspect;
 mod library;
 mod map;
+mod merge;
 mod progress;
 mod unmix;
 
@@ -47,7 +48,7 @@ enum Command {
     Unmix(unmix::Args),
     Map(map::Args),
     Batch(batch::Args),
-    Merge(batch::MergeArgs),
+    Merge(merge::Args),
 }
 
 /// Parses the command line and runs the command.
@@ -60,7 +61,7 @@ pub fn run() -> anyhow::Result<ExitCode> {
         Command::Library(args) => library::run(args),
         Command::Map(args) => map::run(args),
         Command::Batch(args) => batch::run(args),
-        Command::Merge(args) => batch::merge(args),
+        Command::Merge(args) => merge::run(args),
         Command::Unmix(args) => unmix::run(args),
     }
 }

@@ -4,11 +4,13 @@
 use std::path::PathBuf;
 use std::process::ExitCode;
 
-use thiomap::output::results;
-use thiomap::pipeline::{self, Progress, Timings};
-use thiomap::recipe::Recipe;
+use thiomap::photometry::Law;
+use thiomap::pipeline::{self, Destination, Job};
+use thiomap::recipe::{Draft, Scope};
+use thiomap::results;
+use thiomap::unmix::{Precision, Solver, Subsets};
 
-use super::common::{BandArgs, ThreadArgs};
+use super::common::{word, BandArgs, ThreadArgs};
 use super::progress::Bar;
 
 /// Unmix every pixel: abundances, fit RMSE and standard errors.
@@ -90,88 +92,120 @@ pub struct UnmixArgs {
 }
 
 impl UnmixArgs {
-    /// The recipe: defaults, then the recipe file, then the flags given.
-    pub fn recipe(&self) -> anyhow::Result<Recipe> {
-        let mut r = match &self.recipe {
-            Some(p) => Recipe::load(p).map_err(anyhow::Error::msg)?,
-            None => Recipe::default(),
-        };
-        if let Some(l) = &self.library {
-            r.library = l.display().to_string();
-        }
-        if let Some(s) = &self.solver {
-            r.solver = s.clone();
-        }
-        if self.shade {
-            r.shade = true;
-        }
-        if self.no_shade {
-            r.shade = false;
-        }
-        if let Some(s) = &self.subset {
-            r.subset = s.clone();
-        }
-        if self.noise.is_some() {
-            r.noise = self.noise;
-        }
-        if self.no_groups {
-            r.groups = false;
-        }
-        if let Some(a) = self.group_angle {
-            r.group_angle_deg = a;
-        }
-        if self.force {
-            r.force = true;
-        }
-        if self.residuals {
-            r.residuals = true;
-        }
-        if let Some(p) = &self.precision {
-            r.precision = p.clone();
-        }
-        if let Some(p) = &self.photometry {
-            r.photometry = p.clone();
-        }
-        if let Some((a, b)) = self.select.range() {
-            r.range_um = Some([a, b]);
-        }
-        if let Some(x) = self.select.excluded() {
-            r.exclude_bands = x;
-        }
-        r.unmix_params().map_err(anyhow::Error::msg)?;
-        Ok(r)
+    /// The flag table of the unmixing keys: each flag given sets its recipe key over the
+    /// recipe file and the defaults (one line per flag).
+    pub fn draft(&self) -> anyhow::Result<Draft> {
+        let mut d = Draft::new(self.recipe.as_deref())?;
+        d.flag("library", "--library", self.library.as_ref(), |r, p| {
+            r.library = p.display().to_string()
+        });
+        d.flag(
+            "solver",
+            "--solver",
+            word(&self.solver, Solver::parse),
+            |r, v| r.solver = v,
+        );
+        d.flag("shade", "--shade", self.shade.then_some(true), |r, v| {
+            r.shade = v
+        });
+        d.flag(
+            "shade",
+            "--no-shade",
+            self.no_shade.then_some(false),
+            |r, v| r.shade = v,
+        );
+        d.flag(
+            "subset",
+            "--subset",
+            self.subset
+                .as_deref()
+                .map(Subsets::parse)
+                .transpose()
+                .map_err(|e| anyhow::anyhow!("--subset {e}"))?,
+            |r, v| r.subset = v,
+        );
+        d.flag("noise", "--noise", self.noise, |r, v| r.noise = Some(v));
+        d.flag(
+            "groups",
+            "--no-groups",
+            self.no_groups.then_some(false),
+            |r, v| r.groups = v,
+        );
+        d.flag(
+            "group_angle_deg",
+            "--group-angle",
+            self.group_angle,
+            |r, v| r.group_angle_deg = v,
+        );
+        d.flag("force", "--force", self.force.then_some(true), |r, v| {
+            r.force = v
+        });
+        d.flag(
+            "residuals",
+            "--residuals",
+            self.residuals.then_some(true),
+            |r, v| r.residuals = v,
+        );
+        d.flag(
+            "precision",
+            "--precision",
+            word(&self.precision, Precision::parse),
+            |r, v| r.precision = v,
+        );
+        d.flag(
+            "photometry",
+            "--photometry",
+            self.photometry.as_deref().map(Law::parse),
+            |r, v| r.photometry = v,
+        );
+        d.flag("range_um", "--range", self.select.range(), |r, (a, b)| {
+            r.range_um = Some([a, b])
+        });
+        d.flag(
+            "exclude_bands",
+            "--exclude-bands",
+            self.select.excluded(),
+            |r, v| r.exclude_bands = v,
+        );
+        Ok(d)
+    }
+
+    /// The results folder, refused early (before any input is read) when it exists and
+    /// `--overwrite` is not given.
+    pub fn destination(&self) -> anyhow::Result<Destination<'_>> {
+        results::check_folder(&self.out, self.overwrite)?;
+        Ok(Destination {
+            dir: &self.out,
+            overwrite: self.overwrite,
+        })
     }
 }
 
 pub fn run(args: Args) -> anyhow::Result<ExitCode> {
     let a = args.common;
-    let recipe = a.recipe()?;
+    let recipe = a.draft()?.check(Scope::Unmix)?;
     let threads = a.threads.init()?;
-    results::prepare(&a.out, a.overwrite)?;
+    let to = a.destination()?;
     let bar = Bar::new();
-    let mut timings = Timings::default();
-    let prepared = pipeline::prepare(&a.cube, a.hdu.clone(), &recipe, &mut timings)?;
-    for w in &prepared.warnings {
-        bar.warn(w);
-    }
-    let out = timings.time("unmix", || pipeline::run_unmix(&prepared, &recipe, &bar));
+    let done = pipeline::run_cube(
+        Job::Unmix,
+        &a.cube,
+        a.hdu.clone(),
+        to,
+        &recipe,
+        threads,
+        &bar,
+    );
     bar.finish();
-    timings.time("write", || {
-        pipeline::write_unmix_products(&a.out, &prepared, &out)
-    })?;
-    let summary = pipeline::unmix_summary(&prepared, &out, &prepared.warnings);
-    results::write_json(&a.out.join("summary.json"), &summary)?;
-    pipeline::write_timings(&a.out, &timings, threads)?;
-    let record = pipeline::run_record("unmix", &prepared, &recipe)?;
-    results::write_json(&a.out.join("run.json"), &record)?;
-    let c = out.counts;
+    let done = done.map_err(|e| e.error)?;
+    let c = done.counts;
     eprintln!(
         "unmixed {} pixels of {} ({} masked) into {}: {}",
         c.unmixed,
-        prepared.cube.info.pixels(),
+        done.pixels,
         c.nodata + c.zero_signal + c.dark,
         a.out.display(),
-        out.ids.join(", ")
+        done.ids.join(", ")
     );
     Ok(ExitCode::SUCCESS)
 }

@@ -424,7 +424,7 @@ impl CubeReader for FitsCube {
 /// otherwise as `WAVE-TAB` with WAVELENGTH and FWHM columns (µm); spatial WCS cards,
 /// description and backplanes copied through. The file appears whole or not at all; a
 /// name ending in `.gz` is gzip-compressed.
-pub fn write_cube(path: &Path, cube: &Cube) -> Result<(), crate::output::OutputError> {
+pub fn write_cube(path: &Path, cube: &Cube) -> Result<(), crate::atomic::WriteError> {
     let info = &cube.info;
     let mut cards = Vec::new();
     let text = |s: &str| Value::Text(s.to_string());

@@ -315,7 +315,7 @@ impl CubeReader for NpyCube {
 /// Writes a cube as a little-endian f32 C-order `.npy` and its sidecar (same stem,
 /// `.toml`). Backplanes and spatial WCS are not carried by this format. Each file
 /// appears whole or not at all.
-pub fn write_cube(path: &Path, cube: &Cube) -> Result<(), crate::output::OutputError> {
+pub fn write_cube(path: &Path, cube: &Cube) -> Result<(), crate::atomic::WriteError> {
     let sidecar = BandTableFile {
         kind: TableKind::NpySidecar,
         name: None,
@@ -325,11 +325,11 @@ pub fn write_cube(path: &Path, cube: &Cube) -> Result<(), crate::output::OutputE
         bands: BandTableFile::entries(&cube.info.bands),
     };
     let text = toml::to_string(&sidecar).expect("band tables always serialise");
-    crate::output::atomic::write_with(path, |f| {
+    crate::atomic::write_with(path, |f| {
         let mut w = std::io::BufWriter::new(f);
         cube.data
             .write_npy(&mut w)
             .map_err(|e| std::io::Error::other(e.to_string()))
     })?;
-    crate::output::atomic::write_bytes(&sidecar_path(path), text.as_bytes())
+    crate::atomic::write_bytes(&sidecar_path(path), text.as_bytes())
 }

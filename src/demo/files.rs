@@ -12,9 +12,9 @@ use ndarray::Array2;
 use serde::Serialize;
 
 use super::{world, Scene, SceneKind, SceneParams};
+use crate::atomic::WriteError;
 use crate::fits::header::{Card, Value};
 use crate::fits::write::{Extension, ImageData, ImageHdu};
-use crate::output::OutputError;
 
 /// Output format of the cube.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -95,7 +95,7 @@ pub fn write_scene(
     band_set: &str,
     library_version: &str,
     command: &str,
-) -> Result<(), OutputError> {
+) -> Result<(), WriteError> {
     match format {
         CubeFormat::Fits => crate::cube::fits::write_cube(cube_path, &scene.cube)?,
         CubeFormat::Npy => crate::cube::npy::write_cube(cube_path, &scene.cube)?,
@@ -173,10 +173,10 @@ pub fn write_scene(
         }),
     };
     let text = serde_json::to_string_pretty(&json).expect("truth serialises") + "\n";
-    crate::output::atomic::write_bytes(truth_json, text.as_bytes())
+    crate::atomic::write_bytes(truth_json, text.as_bytes())
 }
 
-fn write_truth_planes(path: &Path, scene: &Scene) -> Result<(), OutputError> {
+fn write_truth_planes(path: &Path, scene: &Scene) -> Result<(), WriteError> {
     let t = &scene.truth;
     let mut cards = vec![Card::new(
         "CONTENT",
@@ -214,7 +214,7 @@ fn write_truth_planes(path: &Path, scene: &Scene) -> Result<(), OutputError> {
 /// Scale of the 16-bit band-stack PNGs: reflectance = stored × 1/20000 (0 = no data).
 pub const STACK_SCALE: f64 = 1.0 / 20_000.0;
 
-fn write_stack(sidecar: &Path, scene: &Scene) -> Result<(), OutputError> {
+fn write_stack(sidecar: &Path, scene: &Scene) -> Result<(), WriteError> {
     use crate::cube::bands::{BandEntry, BandTableFile, TableKind};
     let cube = &scene.cube;
     let (rows, cols, _) = cube.data.dim();
@@ -243,11 +243,11 @@ fn write_stack(sidecar: &Path, scene: &Scene) -> Result<(), OutputError> {
                 &mut std::io::Cursor::new(&mut bytes),
                 image::ImageFormat::Png,
             )
-            .map_err(|e| OutputError::Io {
+            .map_err(|e| WriteError::Io {
                 path: sidecar.with_file_name(&file),
                 error: std::io::Error::other(e.to_string()),
             })?;
-        crate::output::atomic::write_bytes(&sidecar.with_file_name(&file), &bytes)?;
+        crate::atomic::write_bytes(&sidecar.with_file_name(&file), &bytes)?;
         *entry = BandEntry {
             file: Some(file),
             scale: Some(STACK_SCALE),
@@ -264,7 +264,7 @@ fn write_stack(sidecar: &Path, scene: &Scene) -> Result<(), OutputError> {
         bands: entries,
     };
     let text = toml::to_string(&table).expect("band tables serialise");
-    crate::output::atomic::write_bytes(sidecar, text.as_bytes())
+    crate::atomic::write_bytes(sidecar, text.as_bytes())
 }
 
 /// Truth read back from `<stem>.truth.fits.gz` and `<stem>.truth.json`.

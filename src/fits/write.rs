@@ -218,11 +218,11 @@ pub fn write_file(
     path: &std::path::Path,
     primary: &ImageHdu,
     extensions: &[Extension],
-) -> Result<(), crate::output::OutputError> {
+) -> Result<(), crate::atomic::WriteError> {
     let gz = path
         .extension()
         .is_some_and(|e| e.eq_ignore_ascii_case("gz"));
-    crate::output::atomic::write_with(path, |file| {
+    crate::atomic::write_with(path, |file| {
         let buffered = io::BufWriter::with_capacity(1 << 20, file);
         if gz {
             let mut enc = flate2::GzBuilder::new()

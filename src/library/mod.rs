@@ -512,14 +512,14 @@ impl Library {
     }
 
     /// Writes this library as a folder (index and member files), each file atomically.
-    pub fn write_folder(&self, folder: &Path) -> Result<(), crate::output::OutputError> {
+    pub fn write_folder(&self, folder: &Path) -> Result<(), crate::atomic::WriteError> {
         let members = folder.join("members");
-        std::fs::create_dir_all(&members).map_err(|source| crate::output::OutputError::Io {
+        std::fs::create_dir_all(&members).map_err(|source| crate::atomic::WriteError::Io {
             path: members.clone(),
             error: source,
         })?;
         for m in &self.members {
-            crate::output::atomic::write_bytes(
+            crate::atomic::write_bytes(
                 &members.join(format!("{}.spectrum", m.id)),
                 m.to_file_text().as_bytes(),
             )?;
@@ -530,7 +530,7 @@ impl Library {
             members: self.members.iter().map(|m| m.id.clone()).collect(),
         };
         let text = toml::to_string(&index).expect("indexes always serialise");
-        crate::output::atomic::write_bytes(&folder.join("library.toml"), text.as_bytes())
+        crate::atomic::write_bytes(&folder.join("library.toml"), text.as_bytes())
     }
 }
 

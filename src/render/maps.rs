@@ -3,7 +3,7 @@
 
 use image::RgbImage;
 
-use super::colour::ColourMatrix;
+use crate::colour::ColourMatrix;
 use crate::cube::Cube;
 
 /// The picture row of internal row `r`.

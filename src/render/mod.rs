@@ -1,7 +1,6 @@
-//! Pictures: the colour of spectra ([`colour`]), map pictures ([`maps`]) and spectrum
-//! plots ([`plot`]).
+//! Pictures: map pictures ([`maps`]), spectrum plots ([`plot`]), and the unit legend and
+//! unit spectra ([`units`]). The colour science they draw with is [`crate::colour`].
 
-pub mod colour;
 pub mod maps;
 pub mod plot;
 pub mod units;

@@ -10,7 +10,7 @@ use std::sync::Once;
 
 use plotters::prelude::*;
 
-use crate::output::OutputError;
+use crate::atomic::WriteError;
 
 const FONT: &[u8] = include_bytes!("../../assets/fonts/DejaVuSans.ttf");
 /// The font family every picture's text uses (DejaVu Sans, compiled in).
@@ -65,7 +65,7 @@ pub fn legible(rgb: [u8; 3]) -> [u8; 3] {
         return rgb;
     }
     let k = 0.35 / y;
-    lin.map(|c| (super::colour::encode(c * k) * 255.0).round() as u8)
+    lin.map(|c| (crate::colour::encode(c * k) * 255.0).round() as u8)
 }
 
 fn draw<DB: DrawingBackend>(
@@ -150,9 +150,9 @@ where
 }
 
 /// Writes the plot as SVG or PNG (by the file's extension), atomically.
-pub fn write_plot(path: &Path, plot: &SpectrumPlot) -> Result<(), OutputError> {
+pub fn write_plot(path: &Path, plot: &SpectrumPlot) -> Result<(), WriteError> {
     let (w, h) = (1280u32, 760u32);
-    let fail = |msg: String| OutputError::Io {
+    let fail = |msg: String| WriteError::Io {
         path: path.to_path_buf(),
         error: std::io::Error::other(msg),
     };
@@ -171,7 +171,7 @@ pub fn write_plot(path: &Path, plot: &SpectrumPlot) -> Result<(), OutputError> {
         image::codecs::png::PngEncoder::new(&mut png)
             .write_image(&buf, w, h, image::ExtendedColorType::Rgb8)
             .map_err(|x| fail(x.to_string()))?;
-        crate::output::atomic::write_bytes(path, &png)
+        crate::atomic::write_bytes(path, &png)
     } else {
         let mut svg = String::new();
         draw(
@@ -179,7 +179,7 @@ pub fn write_plot(path: &Path, plot: &SpectrumPlot) -> Result<(), OutputError> {
             plot,
         )
         .map_err(fail)?;
-        crate::output::atomic::write_bytes(path, svg.as_bytes())
+        crate::atomic::write_bytes(path, svg.as_bytes())
     }
 }
 

@@ -29,8 +29,8 @@ use std::collections::BTreeMap;
 
 use ndarray::Array2;
 
+use crate::colour::{delta_e, srgb8_to_lab, ColourMatrix};
 use crate::library::Library;
-use crate::render::colour::{delta_e, srgb8_to_lab, ColourMatrix};
 use crate::unmix::UnmixOutput;
 pub use cluster::ClusterError;
 pub use rules::Rules;
@@ -84,11 +84,11 @@ impl Default for UnitParams {
 pub enum UnitsError {
     #[error(transparent)]
     Cluster(#[from] ClusterError),
-    #[error("--units 0: at least one unit is needed")]
+    #[error("at least one unit is needed")]
     ZeroUnits,
-    #[error("--min-area 0: the minimum mapping unit is at least one pixel")]
+    #[error("the minimum mapping unit is at least one pixel")]
     ZeroArea,
-    #[error("--sample 0: the sample needs at least one pixel")]
+    #[error("the sample needs at least one pixel")]
     ZeroSample,
 }
 

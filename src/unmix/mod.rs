@@ -23,7 +23,7 @@ pub mod run;
 pub mod solve;
 
 pub use model::{Model, ModelError};
-pub use params::{ParamError, Solver, Subsets, UnmixParams};
+pub use params::{ParamError, Precision, Solver, Subsets, UnmixParams};
 pub use run::{unmix, unmix_with, Counts, RunOptions, StdErrors, UnmixOutput};
 
 use serde::Serialize;

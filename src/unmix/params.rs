@@ -1,11 +1,8 @@
 //! Unmixing parameters behind one checked gate: built from flags or a recipe, validated
 //! once, with one error per broken rule.
 
-use serde::{Deserialize, Serialize};
-
 /// The constraint set of the least-squares problem min ‖y − E a‖².
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
-#[serde(rename_all = "kebab-case")]
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub enum Solver {
     /// No constraints: a = G⁻¹ Eᵀy.
     Unconstrained,
@@ -84,6 +81,31 @@ impl Subsets {
     }
 }
 
+/// The arithmetic the solver runs in.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+pub enum Precision {
+    /// Single precision: the fast path (within 1e-4 of f64 on the reference problems).
+    #[default]
+    F32,
+    /// Double precision: the reference.
+    F64,
+}
+
+impl Precision {
+    pub fn name(self) -> &'static str {
+        match self {
+            Precision::F32 => "f32",
+            Precision::F64 => "f64",
+        }
+    }
+
+    pub fn parse(s: &str) -> Option<Precision> {
+        [Precision::F32, Precision::F64]
+            .into_iter()
+            .find(|p| p.name() == s)
+    }
+}
+
 /// The condition number above which the full problem is refused (2-norm, E with a row of
 /// ones): beyond it noise of 10⁻⁴ in reflectance moves abundances by order one.
 pub const MAX_CONDITION: f64 = 1e4;
@@ -123,11 +145,11 @@ impl Default for UnmixParams {
 /// A broken rule of the parameters.
 #[derive(Debug, Clone, PartialEq, thiserror::Error)]
 pub enum ParamError {
-    #[error("--noise {0}: the noise level must be greater than 0")]
+    #[error("noise {0}: the noise level must be greater than 0")]
     Noise(f64),
-    #[error("--group-angle {0}: must be a non-negative angle in degrees")]
+    #[error("group angle {0}: must be a non-negative angle in degrees")]
     GroupAngle(f64),
-    #[error("--subset {0}: subset mode needs the fcls solver (it compares constrained fits)")]
+    #[error("subset size {0}: subset mode needs the fcls solver (it compares constrained fits)")]
     SubsetSolver(usize),
 }
 

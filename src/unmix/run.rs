@@ -30,12 +30,11 @@
 use std::mem::MaybeUninit;
 use std::sync::atomic::{AtomicUsize, Ordering};
 
-use ndarray::{Array2, Array3};
+use ndarray::{Array2, Array3, ArrayView2, ArrayView3};
 use rayon::prelude::*;
 
 use super::model::{Model, Table};
 use super::solve::{avx2_available, full_step, madd, model_sizes, pivot, positives, tree_sum};
-use crate::cube::Cube;
 
 /// Pixels whose materials sum below this are too dark to unmix.
 pub const DARK_LIMIT: f64 = 0.02;
@@ -1393,27 +1392,31 @@ fn advise_huge_pages<T>(buf: &mut [MaybeUninit<T>]) {
     let _ = buf;
 }
 
-/// Unmixes every pixel of `cube`. `progress` is called with the number of rows finished.
+/// Unmixes every pixel: `data` holds the spectra (row, column, band), `valid` says which
+/// pixels hold data. `progress` is called with the number of rows finished.
 pub fn unmix<T: Real>(
-    cube: &Cube,
+    data: ArrayView3<f32>,
+    valid: ArrayView2<bool>,
     model: &Model,
     opts: &RunOptions,
     progress: &(dyn Fn(usize) + Sync),
 ) -> UnmixOutput {
-    unmix_with::<T>(cube, model, opts, progress, avx2_available())
+    unmix_with::<T>(data, valid, model, opts, progress, avx2_available())
 }
 
 /// [`unmix`] with the kernel chosen by the caller: the AVX2 + FMA instances when `vector`
 /// (callers must have checked [`avx2_available`]; it is checked again here), the portable
 /// ones otherwise. Tests hold the two to each other.
 pub fn unmix_with<T: Real>(
-    cube: &Cube,
+    data: ArrayView3<f32>,
+    valid: ArrayView2<bool>,
     model: &Model,
     opts: &RunOptions,
     progress: &(dyn Fn(usize) + Sync),
     vector: bool,
 ) -> UnmixOutput {
-    let (rows, cols, nb) = cube.data.dim();
+    let (rows, cols, nb) = data.dim();
+    assert_eq!(valid.dim(), (rows, cols), "one validity flag per pixel");
     let plan = Plan::<T>::new(model, opts);
     let planes = plan.planes;
     let mut ids: Vec<String> = model.ids[..plan.mat].to_vec();
@@ -1431,11 +1434,8 @@ pub fn unmix_with<T: Real>(
     let mut residual = opts
         .residuals
         .then(|| Array3::<f32>::from_elem((rows, cols, nb), f32::NAN));
-    let y = cube
-        .data
-        .as_slice()
-        .expect("cube data are in standard layout");
-    let valid = cube.valid.as_slice().expect("standard layout");
+    let y = data.as_slice().expect("spectra are in standard layout");
+    let valid = valid.as_slice().expect("standard layout");
     let kernel = rows_kernel::<T>(model.columns(), model.q.ncols(), vector && avx2_available());
     let done = AtomicUsize::new(0);
 

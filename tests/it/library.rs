@@ -1,11 +1,11 @@
 //! The endmember library against published facts: sanity levels, colours, resampling
 //! identities, and the shipped files against their generator.
 
+use thiomap::colour::{lab_to_lch, xyz_to_lab, ColourMatrix};
 use thiomap::cube::bandsets;
 use thiomap::library::diagnostics::{diagnose, DEFAULT_GROUP_ANGLE_DEG};
 use thiomap::library::resample::resample;
 use thiomap::library::{starter, Class, Library};
-use thiomap::render::colour::{lab_to_lch, xyz_to_lab, ColourMatrix};
 
 fn member<'a>(lib: &'a Library, id: &str) -> &'a thiomap::library::Endmember {
     lib.members.iter().find(|m| m.id == id).unwrap()

@@ -101,7 +101,8 @@ fn demo_ari(name: &str, unmix: &UnmixParams) -> (f64, f64, thiomap::units::UnitM
         noise: None,
         residuals: false,
     };
-    let out = thiomap::unmix::unmix::<f32>(&cube, &model, &opts, &|_| {});
+    let out =
+        thiomap::unmix::unmix::<f32>(cube.data.view(), cube.valid.view(), &model, &opts, &|_| {});
     let spectra = MaterialSpectra::new(&lib, &out.ids);
     let map = classify(
         &out,

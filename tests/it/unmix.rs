@@ -258,7 +258,8 @@ fn demo_rmse(
         noise: None,
         residuals: false,
     };
-    let out = thiomap::unmix::unmix::<f32>(&cube, &model, &opts, &|_| {});
+    let out =
+        thiomap::unmix::unmix::<f32>(cube.data.view(), cube.valid.view(), &model, &opts, &|_| {});
     let materials: Vec<String> = out.ids.iter().filter(|i| *i != "shade").cloned().collect();
     let t = truth.over(&materials);
     let (inc, emi) = (
@@ -348,8 +349,16 @@ fn the_vectorised_kernels_agree_with_the_portable_ones() {
         };
         for solver in [Solver::Fcls, Solver::Nnls, Solver::SumToOne] {
             let md = model(&e, solver);
-            let run =
-                |vector| thiomap::unmix::unmix_with::<f32>(&cube, &md, &opts, &|_| {}, vector);
+            let run = |vector| {
+                thiomap::unmix::unmix_with::<f32>(
+                    cube.data.view(),
+                    cube.valid.view(),
+                    &md,
+                    &opts,
+                    &|_| {},
+                    vector,
+                )
+            };
             let (v, p) = (run(true), run(false));
             assert_eq!(v.unmixed, p.unmixed, "trial {trial} {solver:?}");
             assert_eq!(
@@ -375,7 +384,16 @@ fn the_vectorised_kernels_agree_with_the_portable_ones() {
         noise: None,
         residuals: false,
     };
-    let run = |vector| thiomap::unmix::unmix_with::<f32>(&cube, &md, &opts, &|_| {}, vector);
+    let run = |vector| {
+        thiomap::unmix::unmix_with::<f32>(
+            cube.data.view(),
+            cube.valid.view(),
+            &md,
+            &opts,
+            &|_| {},
+            vector,
+        )
+    };
     let (v, p) = (run(true), run(false));
     assert_eq!(v.unmixed, p.unmixed);
     assert_eq!(v.active, p.active);
@@ -424,8 +442,20 @@ fn the_rmse_agrees_however_it_is_computed() {
                 residuals,
             };
             (
-                thiomap::unmix::unmix::<f32>(&cube, &model, &opts, &|_| {}),
-                thiomap::unmix::unmix::<f64>(&cube, &model, &opts, &|_| {}),
+                thiomap::unmix::unmix::<f32>(
+                    cube.data.view(),
+                    cube.valid.view(),
+                    &model,
+                    &opts,
+                    &|_| {},
+                ),
+                thiomap::unmix::unmix::<f64>(
+                    cube.data.view(),
+                    cube.valid.view(),
+                    &model,
+                    &opts,
+                    &|_| {},
+                ),
             )
         };
         let ((w32, w64), (d32, d64)) = (run(false), run(true));
@@ -467,7 +497,8 @@ fn standard_errors_follow_the_constrained_cramer_rao_form() {
         noise: None,
         residuals: false,
     };
-    let out = thiomap::unmix::unmix::<f64>(&cube, &model, &opts, &|_| {});
+    let out =
+        thiomap::unmix::unmix::<f64>(cube.data.view(), cube.valid.view(), &model, &opts, &|_| {});
     let planes = out.stderr();
     let (rows, cols, nb) = cube.data.dim();
     let mat = model.material_columns();

@@ -1,3 +1,6 @@
+//! Atomic file creation, the ground floor every writer stands on (FITS, `.npy`, pictures,
+//! tables, the results folder, the command line's own files).
+//!
 //! Every file thiomap writes appears whole or not at all: it is written under a
 //! temporary name in the destination folder, then renamed over the final name (a rename
 //! within one file system is atomic on POSIX). A process killed mid-write leaves at most
@@ -13,7 +16,17 @@ use std::io;
 use std::path::{Path, PathBuf};
 use std::sync::atomic::{AtomicU64, Ordering};
 
-use super::OutputError;
+/// What can go wrong writing an output.
+#[derive(Debug, thiserror::Error)]
+pub enum WriteError {
+    #[error("{path}: cannot write: {error}")]
+    Io {
+        path: PathBuf,
+        error: std::io::Error,
+    },
+    #[error("{path}: already exists; pass --overwrite to replace it")]
+    Exists { path: PathBuf },
+}
 
 static COUNTER: AtomicU64 = AtomicU64::new(0);
 static WRITTEN: AtomicU64 = AtomicU64::new(0);
@@ -66,12 +79,12 @@ pub fn remove_stale_temporaries(dir: &Path) -> std::io::Result<()> {
 }
 
 /// Creates `path` atomically from what `write` puts into the file.
-pub fn write_with<F>(path: &Path, write: F) -> Result<(), OutputError>
+pub fn write_with<F>(path: &Path, write: F) -> Result<(), WriteError>
 where
     F: FnOnce(&mut File) -> io::Result<()>,
 {
     let tmp = temporary_name(path);
-    let err = |source| OutputError::Io {
+    let err = |source| WriteError::Io {
         path: path.to_path_buf(),
         error: source,
     };
@@ -89,7 +102,7 @@ where
 }
 
 /// Creates `path` atomically with the given bytes.
-pub fn write_bytes(path: &Path, bytes: &[u8]) -> Result<(), OutputError> {
+pub fn write_bytes(path: &Path, bytes: &[u8]) -> Result<(), WriteError> {
     write_with(path, |f| io::Write::write_all(f, bytes))
 }
 

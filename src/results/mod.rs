@@ -1,0 +1,130 @@
+//! The results folder of one cube, as the results-folder contract names its files, and
+//! the only code that writes into it.
+//!
+//! | file | product ([`products`]) |
+//! |---|---|
+//! | `abundance.fits`, `stderr.fits`, `fit-rmse.fits`, `residual.fits` (with residuals) | FITS planes |
+//! | `abundance/<id>.png`, `fit-rmse.png` | greyscale maps with a colour bar |
+//! | `units.fits`, `units.png`, `true-colour.png`, `units-legend.svg`, `units.csv`, `units-spectra.svg` | `map` only |
+//! | `summary.json` | [`summary`] |
+//! | `timings.json`, `run.json` | [`provenance`]; `run.json` is written last: its presence marks a complete folder |
+//!
+//! [`write_folder`] writes them in that order. Adding a product means adding one function
+//! to [`products`] and one line to `write_products`. Every file is written atomically
+//! ([`crate::atomic`]); this module computes nothing a result depends on: it turns the
+//! pipeline's data into bytes.
+
+pub mod products;
+pub mod provenance;
+pub mod summary;
+
+use std::path::Path;
+
+use crate::atomic::{self, WriteError};
+use crate::cube::Cube;
+use crate::library::Library;
+use crate::recipe::Recipe;
+use crate::units::UnitMap;
+use crate::unmix::{Model, UnmixOutput};
+
+pub use provenance::{input_records, peak_rss_bytes, sha256_file, InputRecord, Timings};
+
+/// Everything a results folder is made from: one cube's data and what was made of it.
+pub struct CubeResult<'a> {
+    /// `unmix` or `map`, as `run.json` records it.
+    pub command: &'a str,
+    pub cube: &'a Cube,
+    pub library: &'a Library,
+    pub model: &'a Model,
+    pub unmixed: &'a UnmixOutput,
+    /// The surface units (`map` only).
+    pub units: Option<&'a UnitMap>,
+    pub recipe: &'a Recipe,
+    /// The warnings the run gave, recorded in `summary.json`.
+    pub warnings: &'a [String],
+}
+
+/// Refuses `dir` when it exists, is not empty and `overwrite` is not given. Creates
+/// nothing: commands call it before reading their inputs, and [`prepare`] once there is
+/// something to write.
+pub fn check_folder(dir: &Path, overwrite: bool) -> Result<(), WriteError> {
+    if overwrite || !dir.exists() {
+        return Ok(());
+    }
+    let non_empty = std::fs::read_dir(dir)
+        .map_err(|source| WriteError::Io {
+            path: dir.to_path_buf(),
+            error: source,
+        })?
+        .next()
+        .is_some();
+    if non_empty {
+        return Err(WriteError::Exists {
+            path: dir.to_path_buf(),
+        });
+    }
+    Ok(())
+}
+
+/// Prepares `dir`: refuses an existing non-empty folder unless `overwrite`; with it,
+/// removes `run.json` first so the folder reads as incomplete until the run ends, and any
+/// temporaries a killed run left behind.
+pub fn prepare(dir: &Path, overwrite: bool) -> Result<(), WriteError> {
+    let io = |source| WriteError::Io {
+        path: dir.to_path_buf(),
+        error: source,
+    };
+    if dir.exists() {
+        check_folder(dir, overwrite)?;
+        let run = dir.join("run.json");
+        if run.exists() {
+            std::fs::remove_file(&run).map_err(|source| WriteError::Io {
+                path: run,
+                error: source,
+            })?;
+        }
+        // A killed run may have left temporaries; they are never results.
+        atomic::remove_stale_temporaries(dir).map_err(io)?;
+    }
+    std::fs::create_dir_all(dir).map_err(io)
+}
+
+/// Writes the whole folder `dir` (prepared by [`prepare`]): the data products (timed as
+/// the `write` stage), then `summary.json`, `timings.json` and, last, `run.json`. Once this
+/// returns, the folder is complete.
+pub fn write_folder(
+    dir: &Path,
+    r: &CubeResult,
+    mut timings: Timings,
+    threads: usize,
+) -> Result<(), WriteError> {
+    timings.time("write", || write_products(dir, r))?;
+    products::summary(dir, r)?;
+    provenance::write_timings(dir, &timings, threads)?;
+    provenance::write_run_record(dir, r)
+}
+
+/// The data products, everything but the summary and the provenance.
+fn write_products(dir: &Path, r: &CubeResult) -> Result<(), WriteError> {
+    products::abundance_planes(dir, r)?;
+    products::stderr_planes(dir, r)?;
+    products::fit_rmse_plane(dir, r)?;
+    products::residual_planes(dir, r)?;
+    products::abundance_pictures(dir, r)?;
+    products::fit_rmse_picture(dir, r)?;
+    if let Some(map) = r.units {
+        products::units_plane(dir, r, map)?;
+        products::units_picture(dir, r, map)?;
+        products::true_colour_picture(dir, r)?;
+        products::units_legend(dir, map)?;
+        products::units_table(dir, map)?;
+        products::units_spectra(dir, r, map)?;
+    }
+    Ok(())
+}
+
+/// Writes pretty JSON with a final newline.
+pub fn write_json(path: &Path, value: &impl serde::Serialize) -> Result<(), WriteError> {
+    let text = serde_json::to_string_pretty(value).expect("output types serialise") + "\n";
+    atomic::write_bytes(path, text.as_bytes())
+}

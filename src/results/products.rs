@@ -1,0 +1,351 @@
+//! One function per product of the results folder: each turns the pipeline's data into
+//! the bytes of one file (or, for the abundance pictures, one file per plane) and writes
+//! it atomically. The file names are the results-folder contract's; the order in which
+//! they are written is [`super::write_folder`]'s.
+
+use std::path::Path;
+
+use ndarray::{Array3, Axis};
+
+use super::CubeResult;
+use crate::atomic::{self, WriteError};
+use crate::colour::hex;
+use crate::cube::CubeInfo;
+use crate::fits::header::{Card, Value};
+use crate::fits::write::{write_file, ImageData, ImageHdu};
+use crate::render;
+use crate::units::{rules::UNEXPLAINED, UnitMap};
+
+/// The cards every output FITS file carries: what it holds, the target, the tool, and the
+/// input's spatial WCS.
+fn common_cards(info: &CubeInfo, content: &str) -> Vec<Card> {
+    let mut cards = vec![Card::new("CONTENT", Value::Text(content.into()), "")];
+    if let Some(t) = &info.about.target {
+        cards.push(Card::new("OBJECT", Value::Text(t.clone()), ""));
+    }
+    cards.push(Card::new(
+        "ORIGIN",
+        Value::Text(format!("thiomap {}", crate::VERSION)),
+        "",
+    ));
+    cards.extend(info.spatial_wcs.iter().cloned());
+    cards
+}
+
+/// Writes planes (row, col, plane) as an f32 FITS cube with axes x, y, plane; PLANEn
+/// cards name each plane. The input's row order and spatial WCS are kept.
+fn write_planes(
+    path: &Path,
+    ids: &[String],
+    data: &Array3<f32>,
+    info: &CubeInfo,
+    content: &str,
+) -> Result<(), WriteError> {
+    let mut cards = common_cards(info, content);
+    for (i, id) in ids.iter().enumerate() {
+        cards.push(Card::new(
+            &format!("PLANE{}", i + 1),
+            Value::Text(id.clone()),
+            "",
+        ));
+    }
+    let primary = ImageHdu {
+        data: ImageData::Cube(data.view()),
+        cards,
+    };
+    write_file(path, &primary, &[])
+}
+
+/// Writes a 2-D plane as FITS: f32 values or int16 labels.
+fn write_image(
+    path: &Path,
+    data: ImageData,
+    info: &CubeInfo,
+    content: &str,
+) -> Result<(), WriteError> {
+    let primary = ImageHdu {
+        data,
+        cards: common_cards(info, content),
+    };
+    write_file(path, &primary, &[])
+}
+
+/// Writes a picture as PNG, creating its folder.
+fn write_png(path: &Path, img: &image::RgbImage) -> Result<(), WriteError> {
+    if let Some(parent) = path.parent() {
+        std::fs::create_dir_all(parent).map_err(|source| WriteError::Io {
+            path: parent.to_path_buf(),
+            error: source,
+        })?;
+    }
+    atomic::write_bytes(path, &render::maps::png_bytes(img))
+}
+
+/// A failure that is not the file system's (a plot or a table that could not be drawn).
+fn failed(dir: &Path, name: &str, e: impl ToString) -> WriteError {
+    WriteError::Io {
+        path: dir.join(name),
+        error: std::io::Error::other(e.to_string()),
+    }
+}
+
+/// `abundance.fits`: one plane per id, materials renormalised, shade last.
+pub fn abundance_planes(dir: &Path, r: &CubeResult) -> Result<(), WriteError> {
+    write_planes(
+        &dir.join("abundance.fits"),
+        &r.unmixed.ids,
+        &r.unmixed.abundance,
+        &r.cube.info,
+        "abundance: materials sum to 1 without shade; shade last",
+    )
+}
+
+/// `stderr.fits`: the standard error of each abundance plane.
+pub fn stderr_planes(dir: &Path, r: &CubeResult) -> Result<(), WriteError> {
+    write_planes(
+        &dir.join("stderr.fits"),
+        &r.unmixed.ids,
+        &r.unmixed.stderr(),
+        &r.cube.info,
+        "standard errors of the abundances",
+    )
+}
+
+/// `fit-rmse.fits`: the fit RMSE per pixel.
+pub fn fit_rmse_plane(dir: &Path, r: &CubeResult) -> Result<(), WriteError> {
+    write_image(
+        &dir.join("fit-rmse.fits"),
+        ImageData::Plane(r.unmixed.rmse.view()),
+        &r.cube.info,
+        "fit RMSE, reflectance",
+    )
+}
+
+/// `residual.fits` (when residuals were asked for): y − Ea per band, planes named by the
+/// band centres.
+pub fn residual_planes(dir: &Path, r: &CubeResult) -> Result<(), WriteError> {
+    let Some(res) = &r.unmixed.residual else {
+        return Ok(());
+    };
+    let info = &r.cube.info;
+    let ids: Vec<String> = info
+        .bands
+        .centres_um()
+        .iter()
+        .map(|c| format!("{c}"))
+        .collect();
+    write_planes(
+        &dir.join("residual.fits"),
+        &ids,
+        res,
+        info,
+        "residual y - Ea per band",
+    )
+}
+
+/// `abundance/<id>.png`: one greyscale map per plane, 0–1.
+pub fn abundance_pictures(dir: &Path, r: &CubeResult) -> Result<(), WriteError> {
+    let out = r.unmixed;
+    let bottom = r.cube.info.format.row0_at_bottom();
+    for (j, id) in out.ids.iter().enumerate() {
+        let plane = out.abundance.index_axis(Axis(2), j);
+        let img = render::maps::grey_map(
+            plane,
+            out.unmixed.view(),
+            bottom,
+            (0.0, 1.0),
+            &format!("abundance of {id}"),
+        );
+        write_png(&dir.join("abundance").join(format!("{id}.png")), &img)?;
+    }
+    Ok(())
+}
+
+/// `fit-rmse.png`: the fit RMSE, its bar clipped at the 99th percentile.
+pub fn fit_rmse_picture(dir: &Path, r: &CubeResult) -> Result<(), WriteError> {
+    let out = r.unmixed;
+    let mut rm: Vec<f32> = out.rmse.iter().cloned().filter(|v| v.is_finite()).collect();
+    rm.sort_by(f32::total_cmp);
+    let hi = rm
+        .get(rm.len().saturating_sub(1) * 99 / 100)
+        .cloned()
+        .unwrap_or(1.0)
+        .max(1e-6);
+    let img = render::maps::grey_map(
+        out.rmse.view(),
+        out.unmixed.view(),
+        r.cube.info.format.row0_at_bottom(),
+        (0.0, hi),
+        "fit RMSE (reflectance; bar clipped at the 99th percentile)",
+    );
+    write_png(&dir.join("fit-rmse.png"), &img)
+}
+
+/// `units.fits`: the unit id per pixel, 0 = no data.
+pub fn units_plane(dir: &Path, r: &CubeResult, map: &UnitMap) -> Result<(), WriteError> {
+    write_image(
+        &dir.join("units.fits"),
+        ImageData::Labels(map.labels.view()),
+        &r.cube.info,
+        "surface unit (0 = no data)",
+    )
+}
+
+/// The unit id of the unexplained pixels, if any.
+fn unexplained_unit(map: &UnitMap) -> Option<i16> {
+    map.units
+        .iter()
+        .find(|u| u.class == UNEXPLAINED)
+        .map(|u| u.unit as i16)
+}
+
+/// `units.png`: each unit in its colour, unexplained pixels marked.
+pub fn units_picture(dir: &Path, r: &CubeResult, map: &UnitMap) -> Result<(), WriteError> {
+    let colours = map
+        .units
+        .iter()
+        .map(|u| (u.unit as i16, u.colour))
+        .collect();
+    write_png(
+        &dir.join("units.png"),
+        &render::maps::unit_map(
+            map.labels.view(),
+            &colours,
+            unexplained_unit(map),
+            r.cube.info.format.row0_at_bottom(),
+        ),
+    )
+}
+
+/// `true-colour.png`: the cube rendered under D65, enlarged to about 512 pixels.
+pub fn true_colour_picture(dir: &Path, r: &CubeResult) -> Result<(), WriteError> {
+    let (tc, _) = render::maps::true_colour(r.cube);
+    write_png(
+        &dir.join("true-colour.png"),
+        &render::maps::enlarge(&tc, 512),
+    )
+}
+
+/// `units-legend.svg`: one row per unit with its colour, label, class and area.
+pub fn units_legend(dir: &Path, map: &UnitMap) -> Result<(), WriteError> {
+    let unexplained = unexplained_unit(map);
+    let rows: Vec<render::units::LegendRow> = map
+        .units
+        .iter()
+        .map(|u| render::units::LegendRow {
+            unit: u.unit,
+            label: u.label.clone(),
+            class: u.class.clone(),
+            area_fraction: u.area_fraction,
+            colour: u.colour,
+            unexplained: Some(u.unit as i16) == unexplained,
+        })
+        .collect();
+    let note = if map.area_weighted {
+        "surface-area weighted"
+    } else {
+        "pixel fraction"
+    };
+    let legend =
+        render::units::legend_svg(&rows, note).map_err(|e| failed(dir, "units-legend.svg", e))?;
+    atomic::write_bytes(&dir.join("units-legend.svg"), legend.as_bytes())
+}
+
+/// `units.csv`: unit, label, class, pixels, area_fraction, mean_<id>…, std_<id>…,
+/// mean_rmse, colour.
+pub fn units_table(dir: &Path, map: &UnitMap) -> Result<(), WriteError> {
+    let mut w = csv::Writer::from_writer(Vec::new());
+    let mut header: Vec<String> = ["unit", "label", "class", "pixels", "area_fraction"]
+        .iter()
+        .map(|s| s.to_string())
+        .collect();
+    header.extend(map.ids.iter().map(|id| format!("mean_{id}")));
+    header.extend(map.ids.iter().map(|id| format!("std_{id}")));
+    header.push("mean_rmse".into());
+    header.push("colour".into());
+    let csv_err = |e: csv::Error| failed(dir, "units.csv", e);
+    w.write_record(&header).map_err(csv_err)?;
+    for u in &map.units {
+        let mut row = vec![
+            u.unit.to_string(),
+            u.label.clone(),
+            u.class.clone(),
+            u.pixels.to_string(),
+            format!("{:.6}", u.area_fraction),
+        ];
+        row.extend(u.mean.iter().map(|v| format!("{v:.6}")));
+        row.extend(u.std.iter().map(|v| format!("{v:.6}")));
+        row.push(format!("{:.6e}", u.mean_rmse));
+        row.push(hex(u.colour));
+        w.write_record(&row).map_err(csv_err)?;
+    }
+    let bytes = w.into_inner().map_err(|e| failed(dir, "units.csv", e))?;
+    atomic::write_bytes(&dir.join("units.csv"), &bytes)
+}
+
+/// `units-spectra.svg`: per unit, the observed mean ± 1σ and the modelled mean.
+pub fn units_spectra(dir: &Path, r: &CubeResult, map: &UnitMap) -> Result<(), WriteError> {
+    let (out, info) = (r.unmixed, &r.cube.info);
+    let nb = info.bands.len();
+    let centres = info.bands.centres_um();
+    let mat = out.ids.iter().filter(|i| *i != "shade").count();
+    let shade_plane = out.ids.iter().position(|i| i == "shade");
+    let mut panels = Vec::new();
+    for u in &map.units {
+        let (mut sum, mut sq, mut model) = (vec![0.0; nb], vec![0.0; nb], vec![0.0; nb]);
+        let mut n = 0.0;
+        for ((row, col), l) in map.labels.indexed_iter() {
+            if *l as usize != u.unit {
+                continue;
+            }
+            n += 1.0;
+            let bright = shade_plane.map_or(1.0, |s| 1.0 - out.abundance[(row, col, s)] as f64);
+            for b in 0..nb {
+                let y = r.cube.data[(row, col, b)] as f64;
+                sum[b] += y;
+                sq[b] += y * y;
+                let fit: f64 = (0..mat)
+                    .map(|j| r.model.e[(b, j)] * out.abundance[(row, col, j)] as f64)
+                    .sum();
+                model[b] += bright * fit;
+            }
+        }
+        if n == 0.0 {
+            continue;
+        }
+        let mean: Vec<f64> = sum.iter().map(|s| s / n).collect();
+        let std: Vec<f64> = sq
+            .iter()
+            .zip(&mean)
+            .map(|(q, m)| (q / n - m * m).max(0.0).sqrt())
+            .collect();
+        panels.push(render::units::UnitSpectrum {
+            title: format!("{}: {} ({} px)", u.unit, u.label, u.pixels),
+            colour: u.colour,
+            centres_um: centres.clone(),
+            mean,
+            std,
+            model: model.iter().map(|m| m / n).collect(),
+        });
+    }
+    let svg =
+        render::units::spectra_svg(&panels).map_err(|e| failed(dir, "units-spectra.svg", e))?;
+    atomic::write_bytes(&dir.join("units-spectra.svg"), svg.as_bytes())
+}
+
+/// `summary.json`: the unmixing summary, with the units' part for `map`.
+pub fn summary(dir: &Path, r: &CubeResult) -> Result<(), WriteError> {
+    let path = dir.join("summary.json");
+    let unmixing = super::summary::unmix_summary(r);
+    let Some(map) = r.units else {
+        return super::write_json(&path, &unmixing);
+    };
+    // The units' keys join the unmixing ones (in one JSON object, keys sorted).
+    let mut value = serde_json::to_value(unmixing).map_err(|e| failed(dir, "summary.json", e))?;
+    if let (Some(s), serde_json::Value::Object(u)) =
+        (value.as_object_mut(), super::summary::units_summary(map))
+    {
+        s.extend(u);
+    }
+    super::write_json(&path, &value)
+}

@@ -1,0 +1,126 @@
+//! What `summary.json` holds: the unmixing part (members, groups, per-member statistics,
+//! masked pixels, the model used) and, for `map`, the units part (units, classes, the
+//! unexplained test, regions, the unit-count scores, the area weighting). Dedicated output
+//! types: the file format is a promise, the numeric internals may change.
+
+use std::path::Path;
+
+use serde::Serialize;
+
+use super::CubeResult;
+use crate::colour::hex;
+use crate::units::UnitMap;
+use crate::unmix;
+
+#[derive(Serialize)]
+struct GroupRecord<'a> {
+    id: &'a str,
+    members: &'a [String],
+}
+
+/// What `summary.json` holds after unmixing (extended by `map`).
+#[derive(Serialize)]
+pub struct UnmixSummary<'a> {
+    pub cube: String,
+    /// The observation time the cube declares, if any.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub observation_time: Option<String>,
+    pub endmembers: &'a [String],
+    pub groups: serde_json::Value,
+    pub per_member: Vec<unmix::PlaneStats>,
+    pub nodata_pixels: usize,
+    pub masked_pixels: serde_json::Value,
+    pub unmixed_pixels: usize,
+    pub mean_rmse: f64,
+    pub solver: &'static str,
+    pub shade: bool,
+    pub subset_size: Option<usize>,
+    pub bands_used: usize,
+    pub condition_number: Option<f64>,
+    pub enumerated_pixels: usize,
+    pub warnings: &'a [String],
+}
+
+/// Builds the unmixing part of `summary.json`.
+pub fn unmix_summary<'a>(r: &CubeResult<'a>) -> UnmixSummary<'a> {
+    let (out, model) = (r.unmixed, r.model);
+    let c = out.counts;
+    let (mut s, mut n) = (0.0, 0usize);
+    for ((row, col), ok) in out.unmixed.indexed_iter() {
+        if *ok {
+            s += out.rmse[(row, col)] as f64;
+            n += 1;
+        }
+    }
+    UnmixSummary {
+        cube: name_of(&r.cube.info.path),
+        observation_time: r.cube.info.about.time.clone(),
+        endmembers: &out.ids,
+        groups: serde_json::to_value(
+            model
+                .groups
+                .iter()
+                .map(|g| GroupRecord {
+                    id: &g.id,
+                    members: &g.members,
+                })
+                .collect::<Vec<_>>(),
+        )
+        .expect("groups serialise"),
+        per_member: unmix::plane_stats(out),
+        nodata_pixels: c.nodata + c.zero_signal + c.dark,
+        masked_pixels: serde_json::json!({
+            "input_nodata": c.nodata,
+            "zero_signal": c.zero_signal,
+            "too_dark": c.dark,
+        }),
+        unmixed_pixels: c.unmixed,
+        mean_rmse: if n > 0 { s / n as f64 } else { f64::NAN },
+        solver: model.solver.name(),
+        shade: model.shade,
+        subset_size: model.subset_size,
+        bands_used: model.bands(),
+        condition_number: model.condition.is_finite().then_some(model.condition),
+        enumerated_pixels: c.enumerated,
+        warnings: r.warnings,
+    }
+}
+
+fn name_of(p: &Path) -> String {
+    p.file_name()
+        .map(|n| n.to_string_lossy().into_owned())
+        .unwrap_or_default()
+}
+
+/// The units part of `summary.json` (merged into the unmixing summary by `map`).
+pub fn units_summary(map: &UnitMap) -> serde_json::Value {
+    let units: Vec<serde_json::Value> = map
+        .units
+        .iter()
+        .map(|u| {
+            let mut row = serde_json::json!({
+                "unit": u.unit, "label": u.label, "class": u.class, "pixels": u.pixels,
+                "area_fraction": u.area_fraction, "mean_rmse": u.mean_rmse,
+                "colour": hex(u.colour),
+            });
+            for (i, id) in map.ids.iter().enumerate() {
+                row[format!("mean_{id}")] = serde_json::json!(u.mean[i]);
+                row[format!("std_{id}")] = serde_json::json!(u.std[i]);
+            }
+            row
+        })
+        .collect();
+    serde_json::json!({
+        "units": units,
+        "classes": map.classes,
+        "unexplained_pixels": map.unexplained_pixels,
+        "unexplained_test": format!(
+            "fit RMSE above {} × the median fit RMSE ({:.3e})",
+            crate::units::UNEXPLAINED_FACTOR, map.noise_level
+        ),
+        "regions_before_min_area": map.regions_before,
+        "regions_after_min_area": map.regions_after,
+        "unit_count_scores": map.scores.iter().map(|(k, s)| serde_json::json!({"units": k, "score": s})).collect::<Vec<_>>(),
+        "area_weighting": if map.area_weighted { "surface area: 1/cos(emission), emission capped at 80°" } else { "pixels" },
+    })
+}
