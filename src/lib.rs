@@ -4,8 +4,9 @@
 //! The library holds the whole pipeline without any command-line concerns. Its modules,
 //! from the ground up (a module uses only those on its own floor or below):
 //!
-//! 1. Ground: [`atomic`] (every file appears whole or not at all) and [`fits`] (FITS
-//!    header units and image bytes).
+//! 1. Ground: [`atomic`] (every file appears whole or not at all), [`fits`] (FITS
+//!    header units and image bytes), [`bands`] (band tables and responses, the band-table
+//!    file schema) and [`backplane`] (the names of the geometry angles).
 //! 2. Data: [`cube`] (image cubes, their band tables, masks and backplanes; readers and
 //!    writers) and [`library`] (the endmember library, its resampling and diagnostics).
 //! 3. The numeric core, which does no I/O and never prints: [`unmix`] (the solvers and
@@ -21,6 +22,8 @@
 //! The command line (`src/cli/`) sits on top. See DEVELOPERS.md for the data flow.
 
 pub mod atomic;
+pub mod backplane;
+pub mod bands;
 pub mod batch;
 pub mod colour;
 pub mod cube;

@@ -14,7 +14,11 @@
 //!
 //! This module does no I/O and never prints.
 
-use crate::cube::{Backplane, Cube};
+use std::collections::BTreeMap;
+
+use ndarray::{s, Array2, ArrayViewMut2, ArrayViewMut3};
+
+use crate::backplane::Backplane;
 
 /// Factors below this (incidence beyond about 84° under Lambert) are masked.
 pub const MIN_FACTOR: f64 = 0.1;
@@ -75,11 +79,17 @@ pub enum PhotometryError {
     },
 }
 
-/// Normalises `cube` in place by `law`; returns the number of valid pixels masked because
-/// their factor fell below [`MIN_FACTOR`].
-pub fn normalise(cube: &mut Cube, law: Law) -> Result<usize, PhotometryError> {
+/// Normalises the spectra `data` (row, column, band) in place by `law`, with the angles
+/// of `backplanes`; returns the number of valid pixels (`valid`) masked because their
+/// factor fell below [`MIN_FACTOR`].
+pub fn normalise(
+    mut data: ArrayViewMut3<f32>,
+    mut valid: ArrayViewMut2<bool>,
+    backplanes: &BTreeMap<Backplane, Array2<f32>>,
+    law: Law,
+) -> Result<usize, PhotometryError> {
     for plane in law.needs() {
-        if !cube.backplanes.contains_key(plane) {
+        if !backplanes.contains_key(plane) {
             return Err(PhotometryError::MissingBackplane {
                 law: law.name(),
                 plane: plane.name(),
@@ -87,10 +97,10 @@ pub fn normalise(cube: &mut Cube, law: Law) -> Result<usize, PhotometryError> {
             });
         }
     }
-    let incidence = &cube.backplanes[&Backplane::Incidence];
-    let emission = cube.backplanes.get(&Backplane::Emission);
+    let incidence = &backplanes[&Backplane::Incidence];
+    let emission = backplanes.get(&Backplane::Emission);
     let mut masked = 0;
-    for ((r, c), ok) in cube.valid.indexed_iter_mut() {
+    for ((r, c), ok) in valid.indexed_iter_mut() {
         if !*ok {
             continue;
         }
@@ -103,7 +113,7 @@ pub fn normalise(cube: &mut Cube, law: Law) -> Result<usize, PhotometryError> {
             continue;
         }
         let inv = (1.0 / p) as f32;
-        for v in cube.data.slice_mut(ndarray::s![r, c, ..]) {
+        for v in data.slice_mut(s![r, c, ..]) {
             *v *= inv;
         }
     }
@@ -113,8 +123,23 @@ pub fn normalise(cube: &mut Cube, law: Law) -> Result<usize, PhotometryError> {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::cube::BandTable;
-    use ndarray::{Array2, Array3};
+    use ndarray::Array3;
+
+    /// Spectra, validity and backplanes of one row of pixels.
+    struct Cube {
+        data: Array3<f32>,
+        valid: Array2<bool>,
+        backplanes: BTreeMap<Backplane, Array2<f32>>,
+    }
+
+    fn normalise(cube: &mut Cube, law: Law) -> Result<usize, PhotometryError> {
+        super::normalise(
+            cube.data.view_mut(),
+            cube.valid.view_mut(),
+            &cube.backplanes,
+            law,
+        )
+    }
 
     fn cube_with(incidence: &[f32], emission: Option<&[f32]>, law: Law) -> Cube {
         let n = incidence.len();
@@ -124,8 +149,11 @@ mod tests {
             let mu = emission.map_or(1.0, |e| (e[c] as f64).to_radians().cos());
             spectrum[b] * law.factor(mu0, mu) as f32
         });
-        let bands = BandTable::evenly_spaced(3, 0.5, 0.1).unwrap();
-        let mut cube = Cube::from_pixels(data, bands);
+        let mut cube = Cube {
+            data,
+            valid: Array2::from_elem((1, n), true),
+            backplanes: BTreeMap::new(),
+        };
         let plane = |v: &[f32]| Array2::from_shape_fn((1, n), |(_, c)| v[c]);
         cube.backplanes
             .insert(Backplane::Incidence, plane(incidence));

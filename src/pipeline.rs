@@ -59,8 +59,8 @@ pub fn prepare(
         ));
     }
     if let Some(law) = law {
-        let masked = crate::photometry::normalise(&mut cube, law)
-            .map_err(|e| anyhow::anyhow!("{}: {e}", path.display()))?;
+        let masked =
+            normalise(&mut cube, law).map_err(|e| anyhow::anyhow!("{}: {e}", path.display()))?;
         if masked > 0 {
             warnings.push(format!(
                 "photometry {}: {masked} pixels with a photometric factor below {} (grazing \
@@ -97,6 +97,20 @@ pub fn prepare(
         model,
         warnings,
     })
+}
+
+/// Divides the cube's spectra by the photometric law of its backplanes; returns the
+/// pixels masked because their factor was too small.
+pub fn normalise(
+    cube: &mut Cube,
+    law: crate::photometry::Law,
+) -> Result<usize, crate::photometry::PhotometryError> {
+    crate::photometry::normalise(
+        cube.data.view_mut(),
+        cube.valid.view_mut(),
+        &cube.backplanes,
+        law,
+    )
 }
 
 /// Runs the unmixing stage with progress.

@@ -378,7 +378,7 @@ impl Draft {
             RecipeError::File(format!(
                 "{}: {}",
                 path.display(),
-                crate::cube::bands::toml_error_line(&text, &e)
+                crate::bands::toml_error_line(&text, &e)
             ))
         };
         let recipe: Recipe = toml::from_str(&text).map_err(located)?;

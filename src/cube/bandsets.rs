@@ -6,8 +6,8 @@
 
 use std::path::Path;
 
-use super::bands::{BandTableFile, TableKind};
 use super::{BandTable, CubeError, OpenOptions};
+use crate::bands::{BandTableFile, TableKind};
 
 /// Shipped band sets: (name, file text).
 pub const SHIPPED: &[(&str, &str)] = &[

@@ -18,7 +18,6 @@
 //! a stack's `nodata` value and non-finite floats all become NaN). Such pixels are
 //! masked and counted, never an error.
 
-pub mod bands;
 pub mod bandsets;
 pub mod fits;
 pub mod npy;
@@ -32,7 +31,8 @@ use std::path::{Path, PathBuf};
 use ndarray::{Array2, Array3, ArrayViewMut3, Axis};
 use rayon::prelude::*;
 
-pub use bands::{About, Band, BandTable, Quantity, Response};
+pub use crate::backplane::Backplane;
+pub use crate::bands::{self, About, Band, BandTable, Quantity, Response};
 
 use crate::fits::header::Card;
 
@@ -123,48 +123,6 @@ impl CubeInfo {
     /// Bytes the samples take as f32.
     pub fn f32_bytes(&self) -> u64 {
         (self.rows * self.cols * self.bands.len()) as u64 * 4
-    }
-}
-
-/// A geometry backplane: one angle per pixel, in degrees.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, PartialOrd, Ord, Hash)]
-pub enum Backplane {
-    Incidence,
-    Emission,
-    Phase,
-    Latitude,
-    Longitude,
-}
-
-impl Backplane {
-    pub const ALL: [Backplane; 5] = [
-        Backplane::Incidence,
-        Backplane::Emission,
-        Backplane::Phase,
-        Backplane::Latitude,
-        Backplane::Longitude,
-    ];
-
-    /// Lower-case name, as used in JSON and sidecars.
-    pub fn name(self) -> &'static str {
-        match self {
-            Backplane::Incidence => "incidence",
-            Backplane::Emission => "emission",
-            Backplane::Phase => "phase",
-            Backplane::Latitude => "latitude",
-            Backplane::Longitude => "longitude",
-        }
-    }
-
-    /// The FITS extension name.
-    pub fn extname(self) -> &'static str {
-        match self {
-            Backplane::Incidence => "INCIDENCE",
-            Backplane::Emission => "EMISSION",
-            Backplane::Phase => "PHASE",
-            Backplane::Latitude => "LATITUDE",
-            Backplane::Longitude => "LONGITUDE",
-        }
     }
 }
 

@@ -14,11 +14,11 @@ use ndarray::{Array3, Axis};
 use ndarray_npy::WriteNpyExt;
 use rayon::prelude::*;
 
-use super::bands::{BandTableFile, TableKind};
 use super::{
     check_rows, check_shape, read_band_table, Backplanes, Block, Cube, CubeError, CubeInfo,
     CubeReader, Format,
 };
+use crate::bands::{BandTableFile, TableKind};
 
 /// A `.npy` cube opened for reading.
 pub struct NpyCube {

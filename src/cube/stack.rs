@@ -22,11 +22,11 @@ use std::path::{Path, PathBuf};
 use ndarray::Array3;
 use rayon::prelude::*;
 
-use super::bands::{BandTableFile, TableKind};
 use super::{
     check_rows, check_shape, interleave_into, Backplanes, Block, CubeError, CubeInfo, CubeReader,
     Format,
 };
+use crate::bands::{BandTableFile, TableKind};
 
 /// A band stack opened for reading.
 pub struct StackCube {

@@ -215,7 +215,7 @@ fn write_truth_planes(path: &Path, scene: &Scene) -> Result<(), WriteError> {
 pub const STACK_SCALE: f64 = 1.0 / 20_000.0;
 
 fn write_stack(sidecar: &Path, scene: &Scene) -> Result<(), WriteError> {
-    use crate::cube::bands::{BandEntry, BandTableFile, TableKind};
+    use crate::bands::{BandEntry, BandTableFile, TableKind};
     let cube = &scene.cube;
     let (rows, cols, _) = cube.data.dim();
     let base = name(&stem(sidecar));

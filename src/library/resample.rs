@@ -13,7 +13,7 @@
 use ndarray::Array2;
 
 use super::{interpolate, starter::FWHM_PER_SIGMA, Class, Endmember, Library};
-use crate::cube::{Band, BandTable, Response};
+use crate::bands::{Band, BandTable, Response};
 
 /// The library resampled to a band set.
 #[derive(Debug, Clone, PartialEq)]

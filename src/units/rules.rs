@@ -59,12 +59,8 @@ pub struct Rules {
 impl Rules {
     /// Parses and checks rule text; `origin` names the file in errors.
     pub fn parse(origin: &str, text: &str) -> Result<Rules, String> {
-        let file: RuleFile = toml::from_str(text).map_err(|e| {
-            format!(
-                "{origin}: {}",
-                crate::cube::bands::toml_error_line(text, &e)
-            )
-        })?;
+        let file: RuleFile = toml::from_str(text)
+            .map_err(|e| format!("{origin}: {}", crate::bands::toml_error_line(text, &e)))?;
         let mut rules = Vec::new();
         for (i, r) in file.rules.into_iter().enumerate() {
             let n = i + 1;

@@ -247,7 +247,7 @@ fn demo_rmse(
         .join(name);
     let mut cube = thiomap::cube::load(&path, &OpenOptions::default()).unwrap();
     if let Some(law) = law {
-        thiomap::photometry::normalise(&mut cube, law).unwrap();
+        thiomap::pipeline::normalise(&mut cube, law).unwrap();
     }
     let truth = thiomap::demo::files::TruthFiles::read(&path).unwrap();
     let lib = thiomap::library::Library::embedded();
