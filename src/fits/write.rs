@@ -3,7 +3,7 @@
 //! 2880-byte blocks of 80-character cards (FITS Standard 4.0, sections 3–7).
 //!
 //! The writer streams to any `Write`; atomicity (temporary name, then rename) is the
-//! caller's job, see [`crate::output::atomic`].
+//! caller's job, see [`crate::atomic`].
 
 use std::io::{self, Write};
 

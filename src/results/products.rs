@@ -251,7 +251,7 @@ pub fn units_legend(dir: &Path, map: &UnitMap) -> Result<(), WriteError> {
     atomic::write_bytes(&dir.join("units-legend.svg"), legend.as_bytes())
 }
 
-/// `units.csv`: unit, label, class, pixels, area_fraction, mean_<id>…, std_<id>…,
+/// `units.csv`: unit, label, class, pixels, area_fraction, `mean_<id>`…, `std_<id>`…,
 /// mean_rmse, colour.
 pub fn units_table(dir: &Path, map: &UnitMap) -> Result<(), WriteError> {
     let mut w = csv::Writer::from_writer(Vec::new());

@@ -5,7 +5,10 @@
 //! - [`model`]: the endmember matrix with groups and shade, the identifiability guard, and
 //!   the passive-set table (EᵀE and its factorisations computed once per cube).
 //! - [`solve`]: the per-pixel exact active-set solver, generic over f32 and f64.
-//! - [`run`]: the parallel driver over blocks of rows: whitening, the solver, residuals.
+//! - [`run`]: the parallel driver over tasks of rows, and the choice of kernel; beside it
+//!   the output types (`output`), what every pixel shares (`plan`), the per-pixel routines
+//!   (`pixel`), the direct path's three block passes (`passes`), their AVX2 + FMA kernels
+//!   written with intrinsics (`avx2`), and subset mode (`subsets`).
 //!
 //! Methods: NNLS (Lawson & Hanson 1974, *Solving Least Squares Problems*); fast NNLS on
 //! precomputed EᵀE and Eᵀy (Bro & De Jong 1997, J. Chemometrics 11:393); FCLS (Heinz &
@@ -17,14 +20,22 @@
 //!
 //! This module does no I/O and never prints.
 
+#[cfg(target_arch = "x86_64")]
+mod avx2;
 pub mod model;
+mod output;
 pub mod params;
+mod passes;
+mod pixel;
+mod plan;
 pub mod run;
 pub mod solve;
+mod subsets;
 
 pub use model::{Model, ModelError};
+pub use output::{Counts, RunOptions, StdErrors, UnmixOutput, DARK_LIMIT};
 pub use params::{ParamError, Precision, Solver, Subsets, UnmixParams};
-pub use run::{unmix, unmix_with, Counts, RunOptions, StdErrors, UnmixOutput};
+pub use run::{unmix, unmix_with};
 
 use serde::Serialize;
 

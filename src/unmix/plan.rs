@@ -1,0 +1,129 @@
+//! What every pixel of a run shares (the [`Plan`]: the model's tables and matrices laid
+//! out for the kernels, in the run's precision) and where a task writes its pixels
+//! ([`Slots`]).
+
+use std::mem::MaybeUninit;
+
+use super::model::{Model, Table};
+use super::output::RunOptions;
+use super::solve::Real;
+
+/// What every pixel of a run shares, in the run's precision `T`.
+pub(super) struct Plan<'a, T> {
+    pub(super) model: &'a Model,
+    pub(super) table: &'a Table<T>,
+    /// Qᵀ band-major (bands × D): z = Σ_k y_k · qt[k]; in f64 for subset mode, and in `T`
+    /// for the direct path.
+    pub(super) qt: Vec<f64>,
+    pub(super) qt_t: Vec<T>,
+    /// Qᵀ band-major with each band's row padded to eight values (D ≤ 8; empty otherwise):
+    /// one register per band for the AVX2 f32 whitening.
+    pub(super) qt8: Vec<f32>,
+    /// The full set's map from z to x for the AVX2 f32 full-set step: D columns of 16
+    /// values (rows 0..M, zero-padded), then the 16 offsets; empty unless D ≤ 8 and the
+    /// full set is regular.
+    pub(super) wfull: Vec<f32>,
+    /// R's material columns one after another (D values each), for the in-span residual.
+    pub(super) rcol: Vec<f64>,
+    /// E's material columns one after another, for the residual.
+    pub(super) ecol: Vec<T>,
+    /// E eight bands by eight bands (per chunk of eight bands, each material's eight
+    /// values), for the residual sum of squares.
+    pub(super) echunks: Vec<T>,
+    pub(super) bands: usize,
+    /// Material columns (members and groups; shade excluded).
+    pub(super) mat: usize,
+    pub(super) planes: usize,
+    pub(super) full: u32,
+    pub(super) non_negative: bool,
+    pub(super) sum_to_one: f64,
+    pub(super) opts: RunOptions,
+}
+
+impl<'a, T: Real> Plan<'a, T> {
+    pub(super) fn new(model: &'a Model, opts: &RunOptions) -> Plan<'a, T> {
+        let (nb, mat) = (model.bands(), model.material_columns());
+        let dims = model.q.ncols();
+        let cast = |v: f64| T::from(v).expect("finite model values");
+        let qt: Vec<f64> = (0..nb)
+            .flat_map(|b| (0..dims).map(move |k| model.q[(b, k)]))
+            .collect();
+        Plan {
+            model,
+            table: T::table(model),
+            qt_t: qt.iter().copied().map(cast).collect(),
+            qt8: if dims <= 8 {
+                qt.chunks_exact(dims.max(1))
+                    .flat_map(|row| (0..8).map(|k| row.get(k).map_or(0.0, |v| *v as f32)))
+                    .collect()
+            } else {
+                Vec::new()
+            },
+            qt,
+            rcol: (0..mat)
+                .flat_map(|j| (0..dims).map(move |k| model.r[(k, j)]))
+                .collect(),
+            ecol: (0..mat)
+                .flat_map(|j| (0..nb).map(move |b| model.e[(b, j)]))
+                .map(cast)
+                .collect(),
+            echunks: (0..nb / 8)
+                .flat_map(|c| (0..mat).flat_map(move |j| (0..8).map(move |t| (c * 8 + t, j))))
+                .map(|(b, j)| cast(model.e[(b, j)]))
+                .collect(),
+            wfull: match T::table(model).entry(model.full_mask()) {
+                // Each column's abundance rows (the first M of its 2M), then the offsets'.
+                Some(e) if dims <= 8 => {
+                    let m = model.columns();
+                    e.map
+                        .chunks_exact(2 * m)
+                        .chain([e.off])
+                        .flat_map(|col| {
+                            (0..16).map(move |i| if i < m { col[i].widen() as f32 } else { 0.0 })
+                        })
+                        .collect()
+                }
+                _ => Vec::new(),
+            },
+            bands: nb,
+            mat,
+            planes: mat + opts.report_shade as usize,
+            full: model.full_mask(),
+            non_negative: model.solver.non_negative(),
+            sum_to_one: model.solver.sum_to_one() as u8 as f64,
+            opts: *opts,
+        }
+    }
+}
+
+/// The output slots of one task's rows (pixel-major, as the arrays store them).
+pub(super) struct Slots<'a> {
+    pub(super) ab: &'a mut [MaybeUninit<f32>],
+    /// The standard errors' scale σ / Σa and passive set ([`StdErrors`]).
+    pub(super) sc: &'a mut [MaybeUninit<f32>],
+    pub(super) ps: &'a mut [u16],
+    pub(super) rm: &'a mut [MaybeUninit<f32>],
+    pub(super) ac: &'a mut [u8],
+    pub(super) um: &'a mut [bool],
+    pub(super) subset: Option<&'a mut [u16]>,
+    pub(super) residual: Option<&'a mut [f32]>,
+}
+
+impl Slots<'_> {
+    /// Marks pixel `px` as not unmixed (its planes NaN).
+    #[inline]
+    pub(super) fn blank(&mut self, px: usize, planes: usize) {
+        for v in &mut self.ab[px * planes..(px + 1) * planes] {
+            v.write(f32::NAN);
+        }
+        self.sc[px].write(f32::NAN);
+        self.ps[px] = 0;
+        self.rm[px].write(f32::NAN);
+    }
+
+    pub(super) fn residual_of(&mut self, px: usize, nb: usize) -> Option<&mut [f32]> {
+        self.residual
+            .as_deref_mut()
+            .map(|r| &mut r[px * nb..(px + 1) * nb])
+    }
+}
