@@ -418,6 +418,9 @@ impl Draft {
                 format!("{f} "),
                 match value {
                     serde_json::Value::String(s) => s,
+                    serde_json::Value::Number(n) if n.is_f64() => {
+                        format!("{}", n.as_f64().unwrap_or(f64::NAN))
+                    }
                     v => v.to_string(),
                 },
             ),
@@ -670,6 +673,14 @@ mod tests {
         });
         let e = d.check(Scope::Map).unwrap_err();
         assert_eq!(e.to_string(), "--units 0: at least one unit is needed");
+        // Numbers read as typed: `--noise -1`, not `-1.0`.
+        let mut d = Draft::default();
+        d.flag("noise", "--noise", Some(-1.0), |r, v| r.noise = Some(v));
+        let e = d.check(Scope::Unmix).unwrap_err();
+        assert_eq!(
+            e.to_string(),
+            "--noise -1: the noise level must be greater than 0"
+        );
     }
 
     #[test]

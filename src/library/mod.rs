@@ -28,6 +28,7 @@
 //! repository) is compiled into the binary; see [`Library::embedded`].
 
 pub mod diagnostics;
+pub mod export;
 pub mod import;
 pub mod resample;
 pub mod starter;

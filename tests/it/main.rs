@@ -9,6 +9,7 @@ mod external;
 mod library;
 mod library_cli;
 mod map_cli;
+mod out_folders;
 mod roundtrip;
 mod support;
 mod units;
