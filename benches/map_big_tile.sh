@@ -3,10 +3,11 @@
 # (timings.json) and peak memory (GNU time), with the cube's and the outputs' sizes beside
 # them for the memory target (peak <= cube f32 + outputs + 128 MiB); then the units stage
 # again with K given (--units 6), so the extra cost of choosing K automatically shows.
-# Usage: benches/map_big_tile.sh   (from the repository root; needs /usr/bin/time)
+# Usage: benches/map_big_tile.sh [BINARY]   (from the repository root; needs /usr/bin/time;
+#   without BINARY it builds and runs target/release/thiomap; give another build's binary
+#   to compare two builds on the same tile)
 set -euo pipefail
-cargo build --release --quiet
-T=target/release/thiomap
+if [ $# -ge 1 ]; then T=$1; else cargo build --release --quiet; T=target/release/thiomap; fi
 mkdir -p bench-data
 $T demo --overwrite --out bench-data/big-tile.fits --kind tile --size 1024 --bands mapper-96 \
   --range 0.4-0.87 --snr 150 --seed 5 2>/dev/null

@@ -289,7 +289,23 @@ pub fn units_spectra(dir: &Path, r: &CubeResult, map: &UnitMap) -> Result<(), Wr
     let nb = info.bands.len();
     let centres = info.bands.centres_um();
     let mat = out.ids.iter().filter(|i| *i != "shade").count();
+    let (planes, cols) = (out.ids.len(), info.cols);
     let shade_plane = out.ids.iter().position(|i| i == "shade");
+    // Flat slices and E's material rows copied once: the loop below runs over every
+    // pixel, band and material (indexing the arrays element by element there took about
+    // 2.5 times the instructions, callgrind).
+    let spectra = r
+        .cube
+        .data
+        .as_slice()
+        .expect("cube samples are in standard layout");
+    let abundance = out
+        .abundance
+        .as_slice()
+        .expect("planes are in standard layout");
+    let e: Vec<f64> = (0..nb)
+        .flat_map(|b| (0..mat).map(move |j| r.model.e[(b, j)]))
+        .collect();
     let mut panels = Vec::new();
     for u in &map.units {
         let (mut sum, mut sq, mut model) = (vec![0.0; nb], vec![0.0; nb], vec![0.0; nb]);
@@ -299,14 +315,17 @@ pub fn units_spectra(dir: &Path, r: &CubeResult, map: &UnitMap) -> Result<(), Wr
                 continue;
             }
             n += 1.0;
-            let bright = shade_plane.map_or(1.0, |s| 1.0 - out.abundance[(row, col, s)] as f64);
-            for b in 0..nb {
-                let y = r.cube.data[(row, col, b)] as f64;
+            let px = row * cols + col;
+            let (y, a) = (
+                &spectra[px * nb..][..nb],
+                &abundance[px * planes..][..planes],
+            );
+            let bright = shade_plane.map_or(1.0, |s| 1.0 - a[s] as f64);
+            for (b, y) in y.iter().enumerate() {
+                let (y, e) = (*y as f64, &e[b * mat..(b + 1) * mat]);
                 sum[b] += y;
                 sq[b] += y * y;
-                let fit: f64 = (0..mat)
-                    .map(|j| r.model.e[(b, j)] * out.abundance[(row, col, j)] as f64)
-                    .sum();
+                let fit: f64 = e.iter().zip(a).map(|(e, a)| e * *a as f64).sum();
                 model[b] += bright * fit;
             }
         }
