@@ -139,15 +139,14 @@ pub fn run_units(
     let materials: Vec<String> = out.ids.iter().filter(|i| *i != "shade").cloned().collect();
     let library = recipe.library();
     let spectra = units::MaterialSpectra::new(library, &materials);
-    let map = units::classify(
-        out,
-        p.cube.backplanes.get(&cube::Backplane::Emission),
-        &spectra,
-        rules,
-        library,
-        params,
-    )
-    .map_err(|e| anyhow::anyhow!("{}: {e}", p.cube.info.path.display()))?;
+    let plane = |b| p.cube.backplanes.get(&b);
+    let geometry = units::Geometry {
+        latitude: plane(cube::Backplane::Latitude),
+        longitude: plane(cube::Backplane::Longitude),
+        emission: plane(cube::Backplane::Emission),
+    };
+    let map = units::classify(out, geometry, &spectra, rules, library, params)
+        .map_err(|e| anyhow::anyhow!("{}: {e}", p.cube.info.path.display()))?;
     if map
         .units
         .iter()

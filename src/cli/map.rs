@@ -59,6 +59,11 @@ pub struct Args {
     /// Cluster on the fit RMSE (divided by the unexplained threshold, 0–1) as well.
     #[arg(long)]
     with_rmse: bool,
+    /// The body's radius in km: unit areas in km² as well as fractions (units.csv
+    /// `area_km2`, summary.json), from the latitude and longitude backplanes. Default: none,
+    /// fractions only.
+    #[arg(long, value_name = "KM", allow_hyphen_values = true)]
+    body_radius: Option<f64>,
 }
 
 impl Args {
@@ -102,6 +107,12 @@ impl Args {
             "--with-albedo",
             self.with_albedo.then_some(true),
             |r, v| r.albedo_feature = v,
+        );
+        d.flag(
+            "body_radius_km",
+            "--body-radius",
+            self.body_radius,
+            |r, v| r.body_radius_km = Some(v),
         );
         d.flag(
             "rmse_feature",

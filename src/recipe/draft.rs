@@ -209,6 +209,11 @@ impl Draft {
         if r.max_units < 2 {
             return Err(self.broken("max_units", "at least 2"));
         }
+        if let Some(radius) = r.body_radius_km {
+            if !(radius.is_finite() && radius > 0.0) {
+                return Err(self.broken("body_radius_km", "the radius must be greater than 0 km"));
+            }
+        }
         Ok(p)
     }
 

@@ -29,6 +29,7 @@
 //! min_points = 10           # dbscan: points of a core neighbourhood
 //! albedo_feature = false    # cluster on 1 − shade as well
 //! rmse_feature = false      # cluster on the scaled fit RMSE as well
+//! # body_radius_km = 1821.6 # unit areas in km² as well as fractions
 //! ```
 //! Every key is optional; unknown keys and unknown words are errors that name the file
 //! and the line.
@@ -101,6 +102,9 @@ pub struct Recipe {
     pub albedo_feature: bool,
     /// `map` only: add the scaled fit RMSE to the clustering features.
     pub rmse_feature: bool,
+    /// `map` only: the body's radius, km, for unit areas in km² (fractions only without).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub body_radius_km: Option<f64>,
 }
 
 /// `units`: a number of units, or "auto" (chosen by the method's score).
@@ -307,6 +311,7 @@ impl Default for Recipe {
             min_points: 10,
             albedo_feature: u.albedo,
             rmse_feature: u.rmse,
+            body_radius_km: None,
         }
     }
 }

@@ -117,7 +117,7 @@ fn write_products(dir: &Path, r: &CubeResult) -> Result<(), WriteError> {
         products::units_picture(dir, r, map)?;
         products::true_colour_picture(dir, r)?;
         products::units_legend(dir, map)?;
-        products::units_table(dir, map)?;
+        products::units_table(dir, r, map)?;
         products::units_spectra(dir, r, map)?;
     }
     Ok(())

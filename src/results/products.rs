@@ -241,7 +241,7 @@ pub fn units_legend(dir: &Path, map: &UnitMap) -> Result<(), WriteError> {
             unexplained: Some(u.unit as i16) == unexplained,
         })
         .collect();
-    let note = if map.area_weighted {
+    let note = if map.area_basis != crate::units::AreaBasis::Pixels {
         "surface-area weighted"
     } else {
         "pixel fraction"
@@ -251,21 +251,25 @@ pub fn units_legend(dir: &Path, map: &UnitMap) -> Result<(), WriteError> {
     atomic::write_bytes(&dir.join("units-legend.svg"), legend.as_bytes())
 }
 
-/// `units.csv`: unit, label, class, pixels, area_fraction, `mean_<id>`…, `std_<id>`…,
-/// mean_rmse, colour.
-pub fn units_table(dir: &Path, map: &UnitMap) -> Result<(), WriteError> {
+/// `units.csv`: unit, label, class, pixels, area_fraction, area_km2 (with a body radius
+/// and the cell basis), `mean_<id>`…, `std_<id>`…, mean_rmse, colour.
+pub fn units_table(dir: &Path, r: &CubeResult, map: &UnitMap) -> Result<(), WriteError> {
+    let km2 = super::summary::unit_areas_km2(r, map);
     let mut w = csv::Writer::from_writer(Vec::new());
     let mut header: Vec<String> = ["unit", "label", "class", "pixels", "area_fraction"]
         .iter()
         .map(|s| s.to_string())
         .collect();
+    if km2.is_some() {
+        header.push("area_km2".into());
+    }
     header.extend(map.ids.iter().map(|id| format!("mean_{id}")));
     header.extend(map.ids.iter().map(|id| format!("std_{id}")));
     header.push("mean_rmse".into());
     header.push("colour".into());
     let csv_err = |e: csv::Error| failed(dir, "units.csv", e);
     w.write_record(&header).map_err(csv_err)?;
-    for u in &map.units {
+    for (i, u) in map.units.iter().enumerate() {
         let mut row = vec![
             u.unit.to_string(),
             u.label.clone(),
@@ -273,6 +277,9 @@ pub fn units_table(dir: &Path, map: &UnitMap) -> Result<(), WriteError> {
             u.pixels.to_string(),
             format!("{:.6}", u.area_fraction),
         ];
+        if let Some(a) = &km2 {
+            row.push(format!("{:.6e}", a[i]));
+        }
         row.extend(u.mean.iter().map(|v| format!("{v:.6}")));
         row.extend(u.std.iter().map(|v| format!("{v:.6}")));
         row.push(format!("{:.6e}", u.mean_rmse));
@@ -362,7 +369,7 @@ pub fn summary(dir: &Path, r: &CubeResult) -> Result<(), WriteError> {
     // The units' keys join the unmixing ones (in one JSON object, keys sorted).
     let mut value = serde_json::to_value(unmixing).map_err(|e| failed(dir, "summary.json", e))?;
     if let (Some(s), serde_json::Value::Object(u)) =
-        (value.as_object_mut(), super::summary::units_summary(map))
+        (value.as_object_mut(), super::summary::units_summary(r, map))
     {
         s.extend(u);
     }

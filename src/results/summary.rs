@@ -92,17 +92,32 @@ fn name_of(p: &Path) -> String {
         .unwrap_or_default()
 }
 
+/// Each unit's area in km², when the recipe gives a body radius and the areas are
+/// spherical cells (sr × R²).
+pub fn unit_areas_km2(r: &CubeResult, map: &UnitMap) -> Option<Vec<f64>> {
+    let radius = r.recipe.body_radius_km?;
+    map.units
+        .iter()
+        .map(|u| u.area_sr.map(|sr| sr * radius * radius))
+        .collect()
+}
+
 /// The units part of `summary.json` (merged into the unmixing summary by `map`).
-pub fn units_summary(map: &UnitMap) -> serde_json::Value {
+pub fn units_summary(r: &CubeResult, map: &UnitMap) -> serde_json::Value {
+    let km2 = unit_areas_km2(r, map);
     let units: Vec<serde_json::Value> = map
         .units
         .iter()
-        .map(|u| {
+        .enumerate()
+        .map(|(i, u)| {
             let mut row = serde_json::json!({
                 "unit": u.unit, "label": u.label, "class": u.class, "pixels": u.pixels,
                 "area_fraction": u.area_fraction, "mean_rmse": u.mean_rmse,
                 "colour": hex(u.colour),
             });
+            if let Some(a) = &km2 {
+                row["area_km2"] = serde_json::json!(a[i]);
+            }
             for (i, id) in map.ids.iter().enumerate() {
                 row[format!("mean_{id}")] = serde_json::json!(u.mean[i]);
                 row[format!("std_{id}")] = serde_json::json!(u.std[i]);
@@ -110,7 +125,7 @@ pub fn units_summary(map: &UnitMap) -> serde_json::Value {
             row
         })
         .collect();
-    serde_json::json!({
+    let mut summary = serde_json::json!({
         "units": units,
         "classes": map.classes,
         "unexplained_pixels": map.unexplained_pixels,
@@ -121,6 +136,11 @@ pub fn units_summary(map: &UnitMap) -> serde_json::Value {
         "regions_before_min_area": map.regions_before,
         "regions_after_min_area": map.regions_after,
         "unit_count_scores": map.scores.iter().map(|(k, s)| serde_json::json!({"units": k, "score": s})).collect::<Vec<_>>(),
-        "area_weighting": if map.area_weighted { "surface area: 1/cos(emission), emission capped at 80°" } else { "pixels" },
-    })
+        "area_weighting": map.area_basis.describe(),
+        "area_missing_pixels": map.area_missing_pixels,
+    });
+    if let Some(a) = &km2 {
+        summary["total_area_km2"] = serde_json::json!(a.iter().sum::<f64>());
+    }
+    summary
 }

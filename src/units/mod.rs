@@ -8,7 +8,8 @@
 //!   and the scaled fit RMSE).
 //! - [`cluster`], [`kmeans`]: k-means by default; Gaussian mixture; DBSCAN.
 //! - [`regions`]: the minimum mapping unit (8-connected regions merged away).
-//! - [`stats`]: per-unit statistics and the area each pixel stands for.
+//! - [`stats`], [`area`]: per-unit statistics and the area each pixel stands for (the
+//!   spherical cell its corners span, from the latitude and longitude backplanes).
 //! - [`rules`], [`naming`]: names from composition; colours from the mean modelled
 //!   spectrum (CIE 1931, D65), nudged apart below ΔE*ab [`MIN_DELTA_E`]; thiomap's own
 //!   scheme.
@@ -17,6 +18,7 @@
 //!
 //! No I/O and no printing here.
 
+pub mod area;
 pub mod cluster;
 pub mod features;
 pub mod kmeans;
@@ -39,6 +41,7 @@ pub use naming::MaterialSpectra;
 pub use params::{UnitParams, UnitsError, DEFAULT_MAX_UNITS, DEFAULT_SAMPLE};
 pub use rules::Rules;
 use stats::AreaWeights;
+pub use stats::{AreaBasis, Geometry};
 
 /// Fit RMSE above this many times the median marks a pixel unexplained.
 pub const UNEXPLAINED_FACTOR: f64 = 5.0;
@@ -55,8 +58,10 @@ pub struct Unit {
     pub label: String,
     pub class: String,
     pub pixels: usize,
-    /// 0–1; surface-area weighted when the cube has an emission backplane.
+    /// 0–1; surface-area weighted when the cube has the backplanes (see [`AreaBasis`]).
     pub area_fraction: f64,
+    /// The unit's area in steradians of the body (× R² for km²), on the cell basis only.
+    pub area_sr: Option<f64>,
     /// Mean and standard deviation of each material's abundance (ids as `unmix` reports).
     pub mean: Vec<f64>,
     pub std: Vec<f64>,
@@ -81,7 +86,9 @@ pub struct UnitMap {
     pub regions_after: usize,
     /// Score per K tried, when K was chosen (silhouette for k-means, BIC for the mixture).
     pub scores: Vec<(usize, f64)>,
-    pub area_weighted: bool,
+    pub area_basis: AreaBasis,
+    /// Unmixed pixels that count no area (no latitude or longitude on the cell basis).
+    pub area_missing_pixels: usize,
     /// Area fraction per class id.
     pub classes: BTreeMap<String, f64>,
 }
@@ -89,7 +96,7 @@ pub struct UnitMap {
 /// Groups the unmixed pixels of `out` into units.
 pub fn classify(
     out: &UnmixOutput,
-    emission_deg: Option<&Array2<f32>>,
+    geometry: Geometry,
     spectra: &MaterialSpectra,
     rules: &Rules,
     library: &Library,
@@ -161,7 +168,7 @@ pub fn classify(
         });
 
     // Statistics, names and colours per unit (and for the unexplained pixels).
-    let area = AreaWeights::new(emission_deg);
+    let area = AreaWeights::new(geometry);
     let total_area = area.total(out);
     let matrix = ColourMatrix::for_wavelengths(&spectra.wavelength_um);
     let mut units: Vec<Unit> = Vec::new();
@@ -196,6 +203,7 @@ pub fn classify(
             } else {
                 0.0
             },
+            area_sr: (area.basis() == AreaBasis::Cells).then_some(s.area),
             mean: s.mean,
             std: s.std,
             mean_rmse: s.mean_rmse,
@@ -217,7 +225,8 @@ pub fn classify(
         regions_before,
         regions_after,
         scores: fitted.scores,
-        area_weighted: area.weighted(),
+        area_basis: area.basis(),
+        area_missing_pixels: area.missing(out),
         classes,
     })
 }

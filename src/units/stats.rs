@@ -1,7 +1,9 @@
 //! Per-unit statistics and the area each pixel stands for.
 //!
-//! - **Area**: with an emission-angle backplane, a pixel counts 1/cos(emission) (capped at
-//!   [`MAX_EMISSION_DEG`]) of surface; otherwise pixels count alike.
+//! - **Area**: with latitude and longitude backplanes, a pixel counts the spherical cell
+//!   its corners span ([`super::area`]: right for globes and map projections alike); with
+//!   only an emission-angle backplane, 1/cos(emission) (capped at [`MAX_EMISSION_DEG`]),
+//!   which holds for an orthographic image of a globe only; otherwise pixels count alike.
 //! - **Statistics**: per unit, the mean and standard deviation of each material's
 //!   abundance, the mean fit RMSE, the pixel count and the area.
 
@@ -10,28 +12,99 @@ use ndarray::Array2;
 use super::MAX_EMISSION_DEG;
 use crate::unmix::UnmixOutput;
 
-/// The surface area a pixel stands for, relative to a pixel seen face-on.
+/// The geometry backplanes the area weights may use (degrees).
+#[derive(Debug, Clone, Copy, Default)]
+pub struct Geometry<'a> {
+    pub latitude: Option<&'a Array2<f32>>,
+    pub longitude: Option<&'a Array2<f32>>,
+    pub emission: Option<&'a Array2<f32>>,
+}
+
+/// What a pixel's area comes from.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum AreaBasis {
+    /// The spherical cell its corners span ([`super::area`]), from latitude and longitude.
+    Cells,
+    /// 1/cos(emission): the pixel area of an orthographic image of a globe, only.
+    Emission,
+    /// Every pixel alike.
+    Pixels,
+}
+
+impl AreaBasis {
+    /// How `summary.json` states it.
+    pub fn describe(self) -> &'static str {
+        match self {
+            AreaBasis::Cells => {
+                "surface area: the spherical cell of each pixel, from the latitude and \
+                 longitude backplanes"
+            }
+            AreaBasis::Emission => "surface area: 1/cos(emission), emission capped at 80°",
+            AreaBasis::Pixels => "pixels",
+        }
+    }
+}
+
+/// The surface area a pixel stands for: steradians of the body (cells), or relative to a
+/// pixel seen face-on (emission), or 1 (pixels).
 pub struct AreaWeights<'a> {
+    basis: AreaBasis,
+    cells: Option<Array2<f64>>,
     emission_deg: Option<&'a Array2<f32>>,
 }
 
 impl<'a> AreaWeights<'a> {
-    pub fn new(emission_deg: Option<&'a Array2<f32>>) -> AreaWeights<'a> {
-        AreaWeights { emission_deg }
+    /// Cells when latitude and longitude span them, else 1/cos(emission) when there is an
+    /// emission backplane, else pixels.
+    pub fn new(geometry: Geometry<'a>) -> AreaWeights<'a> {
+        let cells = match (geometry.latitude, geometry.longitude) {
+            (Some(lat), Some(lon)) => super::area::cell_areas_sr(lat.view(), lon.view()),
+            _ => None,
+        };
+        let basis = match (&cells, geometry.emission) {
+            (Some(_), _) => AreaBasis::Cells,
+            (None, Some(_)) => AreaBasis::Emission,
+            (None, None) => AreaBasis::Pixels,
+        };
+        AreaWeights {
+            basis,
+            cells,
+            emission_deg: geometry.emission,
+        }
     }
 
-    /// Whether pixels are weighted by area (else they count alike).
-    pub fn weighted(&self) -> bool {
-        self.emission_deg.is_some()
+    pub fn basis(&self) -> AreaBasis {
+        self.basis
     }
 
+    /// Pixel (r, c)'s area; 0 for a pixel that has data but no latitude or longitude.
     pub fn of(&self, r: usize, c: usize) -> f64 {
-        match self.emission_deg {
-            Some(e) => {
+        match (self.basis, &self.cells, self.emission_deg) {
+            (AreaBasis::Cells, Some(a), _) => {
+                let v = a[(r, c)];
+                if v.is_finite() {
+                    v
+                } else {
+                    0.0
+                }
+            }
+            (AreaBasis::Emission, _, Some(e)) => {
                 let deg = (e[(r, c)] as f64).clamp(0.0, MAX_EMISSION_DEG);
                 1.0 / deg.to_radians().cos()
             }
-            None => 1.0,
+            _ => 1.0,
+        }
+    }
+
+    /// Unmixed pixels that count no area (on a cell basis: no latitude or longitude).
+    pub fn missing(&self, out: &UnmixOutput) -> usize {
+        match &self.cells {
+            Some(a) if self.basis == AreaBasis::Cells => out
+                .unmixed
+                .indexed_iter()
+                .filter(|((r, c), ok)| **ok && !a[(*r, *c)].is_finite())
+                .count(),
+            _ => 0,
         }
     }
 

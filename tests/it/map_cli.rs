@@ -60,9 +60,10 @@ fn map_writes_the_whole_results_folder() {
     }
     let total: f64 = classes.values().map(|v| v.as_f64().unwrap()).sum();
     assert!((total - 1.0).abs() < 1e-9, "area fractions sum to {total}");
+    // The demo globe has latitude and longitude backplanes: areas are spherical cells.
     assert_eq!(
         summary["area_weighting"],
-        "surface area: 1/cos(emission), emission capped at 80°"
+        "surface area: the spherical cell of each pixel, from the latitude and longitude backplanes"
     );
     // units.csv columns as the results-folder contract lists them.
     let csv = std::fs::read_to_string(out.join("units.csv")).unwrap();
@@ -181,4 +182,57 @@ fn optional_features_and_methods_are_recorded_in_the_recipe() {
     );
     assert_eq!(run.status.code(), Some(2));
     assert!(stderr(&run).contains("eps > 0"), "{}", stderr(&run));
+}
+
+#[test]
+fn a_body_radius_gives_unit_areas_in_square_kilometres() {
+    // The visible disk of a globe is at most a hemisphere, 2πR² (analytic); the units'
+    // km² add up to the total and follow their fractions.
+    let dir = tempfile::tempdir().unwrap();
+    let out = dir.path().join("r");
+    let cube = Path::new(env!("CARGO_MANIFEST_DIR")).join("demo-cubes/brimveil-globe-imager7.fits");
+    let radius = 1000.0f64;
+    let run = thiomap(&[
+        "map",
+        cube.to_str().unwrap(),
+        "--out",
+        out.to_str().unwrap(),
+        "--body-radius",
+        "1000",
+    ]);
+    assert_eq!(run.status.code(), Some(0), "{}", stderr(&run));
+    let summary: serde_json::Value =
+        serde_json::from_slice(&std::fs::read(out.join("summary.json")).unwrap()).unwrap();
+    let total = summary["total_area_km2"].as_f64().unwrap();
+    let hemisphere = 2.0 * std::f64::consts::PI * radius * radius;
+    assert!(
+        total > 0.2 * hemisphere && total <= hemisphere * 1.001,
+        "{total} km²"
+    );
+    let mut sum = 0.0;
+    for u in summary["units"].as_array().unwrap() {
+        let (km2, fraction) = (
+            u["area_km2"].as_f64().unwrap(),
+            u["area_fraction"].as_f64().unwrap(),
+        );
+        assert!((km2 - fraction * total).abs() <= 1e-9 * total, "{u}");
+        sum += km2;
+    }
+    assert!((sum - total).abs() < 1e-6 * total);
+    let csv = std::fs::read_to_string(out.join("units.csv")).unwrap();
+    let header: Vec<&str> = csv.lines().next().unwrap().split(',').collect();
+    assert_eq!(
+        &header[..6],
+        &[
+            "unit",
+            "label",
+            "class",
+            "pixels",
+            "area_fraction",
+            "area_km2"
+        ]
+    );
+    let record: serde_json::Value =
+        serde_json::from_slice(&std::fs::read(out.join("run.json")).unwrap()).unwrap();
+    assert_eq!(record["recipe"]["body_radius_km"], 1000.0);
 }

@@ -1,5 +1,8 @@
 //! Surface units against outside references (the Iris data) and the demo truth.
 
+use std::path::Path;
+
+use ndarray::Array2;
 use thiomap::cube::{Backplane, OpenOptions};
 use thiomap::library::Library;
 use thiomap::units::cluster::{adjusted_rand_index, assign, fit, Method};
@@ -106,7 +109,10 @@ fn demo_ari(name: &str, unmix: &UnmixParams) -> (f64, f64, thiomap::units::UnitM
     let spectra = MaterialSpectra::new(&lib, &out.ids);
     let map = classify(
         &out,
-        cube.backplanes.get(&Backplane::Emission),
+        thiomap::units::Geometry {
+            emission: cube.backplanes.get(&Backplane::Emission),
+            ..Default::default()
+        },
         &spectra,
         &Rules::default_rules(),
         &lib,
@@ -174,4 +180,144 @@ fn imager_globe_units_match_the_truth() {
             .collect::<Vec<_>>()
     );
     assert!(core >= 0.80, "ARI {core}");
+}
+
+/// An equirectangular grid of cell centres: `rows` × `cols` cells of `step` degrees from
+/// (lat0, lon0) at the first cell's south-west corner; row 0 is the northernmost.
+fn equirectangular(
+    rows: usize,
+    cols: usize,
+    lat0: f64,
+    lon0: f64,
+    step: f64,
+) -> (Array2<f32>, Array2<f32>) {
+    let lat = Array2::from_shape_fn((rows, cols), |(r, _)| {
+        (lat0 + (rows - 1 - r) as f64 * step + step / 2.0) as f32
+    });
+    let lon = Array2::from_shape_fn((rows, cols), |(_, c)| {
+        (lon0 + c as f64 * step + step / 2.0) as f32
+    });
+    (lat, lon)
+}
+
+#[test]
+fn cell_areas_of_a_global_map_add_up_to_the_sphere_and_to_each_latitude_band() {
+    // A latitude–longitude cell has area R²Δλ(sin φ₂ − sin φ₁) (λ in radians) and the
+    // sphere 4πR² (analytic): on the unit sphere, to 0.1 %.
+    let (lat, lon) = equirectangular(180, 360, -90.0, -180.0, 1.0);
+    let area = thiomap::units::area::cell_areas_sr(lat.view(), lon.view()).unwrap();
+    let total: f64 = area.iter().sum();
+    let sphere = 4.0 * std::f64::consts::PI;
+    assert!(
+        (total / sphere - 1.0).abs() < 1e-3,
+        "{total} against {sphere}"
+    );
+    for (north, south) in [
+        (90.0f64, 60.0f64),
+        (60.0, 30.0),
+        (10.0, -10.0),
+        (-40.0, -70.0),
+    ] {
+        let rows = (90.0 - north) as usize..(90.0 - south) as usize;
+        let band: f64 = area.slice(ndarray::s![rows, ..]).iter().sum();
+        let want =
+            2.0 * std::f64::consts::PI * (north.to_radians().sin() - south.to_radians().sin());
+        assert!(
+            (band / want - 1.0).abs() < 1e-3,
+            "{north}..{south}: {band} against {want}"
+        );
+    }
+}
+
+#[test]
+fn cell_areas_across_the_antimeridian_match_the_closed_form() {
+    // A 10° × 20° patch straddling 180° of longitude, centres given in −180…180: each
+    // cell's area R²Δλ(sin φ₂ − sin φ₁) (analytic), to 0.1 %.
+    let (lat, mut lon) = equirectangular(10, 20, 30.0, 170.0, 1.0);
+    lon.mapv_inplace(|v| if v > 180.0 { v - 360.0 } else { v });
+    let area = thiomap::units::area::cell_areas_sr(lat.view(), lon.view()).unwrap();
+    for ((r, c), a) in area.indexed_iter() {
+        let south = 30.0 + (9 - r) as f64;
+        let want =
+            1f64.to_radians() * ((south + 1.0).to_radians().sin() - south.to_radians().sin());
+        assert!(
+            (a / want - 1.0).abs() < 1e-3,
+            "cell ({r}, {c}): {a} against {want}"
+        );
+    }
+}
+
+#[test]
+fn an_orthographic_globe_shows_a_cap_of_the_closed_form_area() {
+    // An orthographic view of a sphere: the cells within emission angle e add up to the
+    // cap 2πR²(1 − cos e) (analytic), here to 1 %; pixels off the disk have no latitude.
+    let n = 400;
+    let (mut lat, mut lon) = (
+        Array2::<f32>::from_elem((n, n), f32::NAN),
+        Array2::<f32>::from_elem((n, n), f32::NAN),
+    );
+    let mut emission = Array2::<f64>::from_elem((n, n), f64::NAN);
+    for r in 0..n {
+        for c in 0..n {
+            let x = (c as f64 + 0.5) / n as f64 * 2.0 - 1.0;
+            let y = 1.0 - (r as f64 + 0.5) / n as f64 * 2.0;
+            let z2 = 1.0 - x * x - y * y;
+            if z2 <= 0.0 {
+                continue;
+            }
+            let z = z2.sqrt();
+            lat[(r, c)] = y.asin().to_degrees() as f32;
+            lon[(r, c)] = x.atan2(z).to_degrees() as f32;
+            emission[(r, c)] = z.acos().to_degrees();
+        }
+    }
+    let area = thiomap::units::area::cell_areas_sr(lat.view(), lon.view()).unwrap();
+    for e in [30.0f64, 70.0] {
+        let cap: f64 = area
+            .iter()
+            .zip(emission.iter())
+            .filter(|(_, em)| **em <= e)
+            .map(|(a, _)| a)
+            .sum();
+        let want = 2.0 * std::f64::consts::PI * (1.0 - e.to_radians().cos());
+        assert!(
+            (cap / want - 1.0).abs() < 1e-2,
+            "e ≤ {e}°: {cap} against {want}"
+        );
+    }
+    // Limb cells are clipped, never larger than the hemisphere allows, and off-disk
+    // pixels have no area.
+    let total: f64 = area.iter().filter(|a| a.is_finite()).sum();
+    assert!(total <= 2.0 * std::f64::consts::PI * 1.001, "{total}");
+    assert!(area[(0, 0)].is_nan());
+}
+
+#[test]
+fn the_shipped_tile_weighs_its_cells_by_their_true_area() {
+    // The demo tile is an equirectangular map with latitude and longitude backplanes:
+    // each cell's area relative to the mean must follow R²Δλ(sin φ₂ − sin φ₁), which goes
+    // as cos(latitude) (analytic), not 1/cos(emission); checked to 0.1 % on every cell.
+    let cube = thiomap::cube::load(
+        &Path::new(env!("CARGO_MANIFEST_DIR")).join("demo-cubes/brimveil-tile-spectrometer24.fits"),
+        &Default::default(),
+    )
+    .unwrap();
+    let lat = &cube.backplanes[&Backplane::Latitude];
+    let lon = &cube.backplanes[&Backplane::Longitude];
+    let area = thiomap::units::area::cell_areas_sr(lat.view(), lon.view()).unwrap();
+    let (rows, cols) = lat.dim();
+    let dlat = (lat[(0, 0)] as f64 - lat[(1, 0)] as f64).abs();
+    let dlon = (lon[(0, 1)] as f64 - lon[(0, 0)] as f64).abs();
+    for r in 0..rows {
+        for c in 0..cols {
+            let phi = lat[(r, c)] as f64;
+            let want = dlon.to_radians()
+                * ((phi + dlat / 2.0).to_radians().sin() - (phi - dlat / 2.0).to_radians().sin());
+            let got = area[(r, c)];
+            assert!(
+                (got / want - 1.0).abs() < 1e-3,
+                "cell ({r}, {c}) at {phi}°: {got} against {want}"
+            );
+        }
+    }
 }
