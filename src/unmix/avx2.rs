@@ -9,8 +9,7 @@
 use std::mem::MaybeUninit;
 
 use super::output::{Counts, DARK_LIMIT};
-use super::passes::{PixelBlock, BLOCK, SKIP};
-use super::plan::{Plan, Slots};
+use super::plan::{PixelBlock, Plan, Slots, BLOCK, SKIP};
 use super::solve::{positives, tree_sum};
 
 /// [`direct_rss`] for f32 with AVX2 + FMA written out: eight bands per register and every

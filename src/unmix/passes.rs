@@ -9,7 +9,7 @@ use super::output::Counts;
 use super::pixel::{
     direct_rss, finish, fit_of, prefetch, residual, skipped, skipped_as, whiten, Fit,
 };
-use super::plan::{Plan, Slots};
+use super::plan::{PixelBlock, Plan, Slots, BLOCK, SKIP};
 use super::solve::{full_step, pivot, positives, Real};
 
 /// Defines each kernel twice over one shared body: `$plain`, portable, and `$avx2`, the
@@ -44,30 +44,6 @@ macro_rules! variants {
     )*};
 }
 pub(super) use variants;
-
-/// Pixels per block of the direct path.
-pub(super) const BLOCK: usize = 32;
-
-/// Marks a skipped pixel in [`PixelBlock::flips`].
-pub(super) const SKIP: u32 = u32::MAX;
-
-/// One block of pixels in flight on the direct path.
-pub(super) struct PixelBlock<'a, T, const M: usize, const D: usize> {
-    /// The block's spectra (pixel-major) and validity.
-    pub(super) y: &'a [f32],
-    /// The spectra after the block's (prefetched while it is whitened).
-    pub(super) next: &'a [f32],
-    pub(super) ok: &'a [bool],
-    /// The first pixel's index in the task.
-    pub(super) px0: usize,
-    pub(super) z: [[T; D]; BLOCK],
-    pub(super) a: [[T; M]; BLOCK],
-    /// The full set's violators, or [`SKIP`].
-    pub(super) flips: [u32; BLOCK],
-    pub(super) passive: [u32; BLOCK],
-    /// One spectrum's worth of working space.
-    pub(super) scratch: Vec<T>,
-}
 
 /// Runs one pass in the variant `FUSED` names.
 macro_rules! run_pass {

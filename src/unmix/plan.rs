@@ -1,6 +1,6 @@
 //! What every pixel of a run shares (the [`Plan`]: the model's tables and matrices laid
-//! out for the kernels, in the run's precision) and where a task writes its pixels
-//! ([`Slots`]).
+//! out for the kernels, in the run's precision), where a task writes its pixels
+//! ([`Slots`]), and the block of pixels the direct path's passes work on ([`PixelBlock`]).
 
 use std::mem::MaybeUninit;
 
@@ -126,4 +126,28 @@ impl Slots<'_> {
             .as_deref_mut()
             .map(|r| &mut r[px * nb..(px + 1) * nb])
     }
+}
+
+/// Pixels per block of the direct path.
+pub(super) const BLOCK: usize = 32;
+
+/// Marks a skipped pixel in [`PixelBlock::flips`].
+pub(super) const SKIP: u32 = u32::MAX;
+
+/// One block of pixels in flight on the direct path.
+pub(super) struct PixelBlock<'a, T, const M: usize, const D: usize> {
+    /// The block's spectra (pixel-major) and validity.
+    pub(super) y: &'a [f32],
+    /// The spectra after the block's (prefetched while it is whitened).
+    pub(super) next: &'a [f32],
+    pub(super) ok: &'a [bool],
+    /// The first pixel's index in the task.
+    pub(super) px0: usize,
+    pub(super) z: [[T; D]; BLOCK],
+    pub(super) a: [[T; M]; BLOCK],
+    /// The full set's violators, or [`SKIP`].
+    pub(super) flips: [u32; BLOCK],
+    pub(super) passive: [u32; BLOCK],
+    /// One spectrum's worth of working space.
+    pub(super) scratch: Vec<T>,
 }
