@@ -46,8 +46,6 @@
 
 mod draft;
 
-use std::path::Path;
-
 use serde::de::Error as _;
 use serde::{Deserialize, Deserializer, Serialize, Serializer};
 
@@ -317,11 +315,6 @@ impl Default for Recipe {
 }
 
 impl Recipe {
-    /// Reads a recipe file; errors name the file and the line.
-    pub fn load(path: &Path) -> Result<Recipe, RecipeError> {
-        Draft::from_file(path).map(|d| d.recipe)
-    }
-
     /// The recipe as TOML text.
     pub fn to_toml(&self) -> String {
         toml::to_string(self).expect("recipes serialise")

@@ -57,16 +57,20 @@ pub struct InputRecord {
     pub sha256: String,
 }
 
+/// A path's file name, as provenance and the summary record it.
+pub(super) fn file_name(p: &Path) -> String {
+    p.file_name()
+        .map(|n| n.to_string_lossy().into_owned())
+        .unwrap_or_default()
+}
+
 /// The inputs of a cube with their hashes.
 pub fn input_records(files: &[PathBuf]) -> Result<Vec<InputRecord>, WriteError> {
     files
         .iter()
         .map(|f| {
             Ok(InputRecord {
-                name: f
-                    .file_name()
-                    .map(|n| n.to_string_lossy().into_owned())
-                    .unwrap_or_default(),
+                name: file_name(f),
                 sha256: sha256_file(f)?,
             })
         })

@@ -3,8 +3,6 @@
 //! unexplained test, regions, the unit-count scores, the area weighting). Dedicated output
 //! types: the file format is a promise, the numeric internals may change.
 
-use std::path::Path;
-
 use serde::Serialize;
 
 use super::CubeResult;
@@ -53,7 +51,7 @@ pub fn unmix_summary<'a>(r: &CubeResult<'a>) -> UnmixSummary<'a> {
         }
     }
     UnmixSummary {
-        cube: name_of(&r.cube.info.path),
+        cube: super::provenance::file_name(&r.cube.info.path),
         observation_time: r.cube.info.about.time.clone(),
         endmembers: &out.ids,
         groups: serde_json::to_value(
@@ -84,12 +82,6 @@ pub fn unmix_summary<'a>(r: &CubeResult<'a>) -> UnmixSummary<'a> {
         enumerated_pixels: c.enumerated,
         warnings: r.warnings,
     }
-}
-
-fn name_of(p: &Path) -> String {
-    p.file_name()
-        .map(|n| n.to_string_lossy().into_owned())
-        .unwrap_or_default()
 }
 
 /// Each unit's area in km², when the recipe gives a body radius and the areas are

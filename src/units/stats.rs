@@ -46,41 +46,37 @@ impl AreaBasis {
 }
 
 /// The surface area a pixel stands for: steradians of the body (cells), or relative to a
-/// pixel seen face-on (emission), or 1 (pixels).
+/// pixel seen face-on (emission), or 1 (pixels). The basis follows from which planes it
+/// holds: cells when latitude and longitude span them, else the emission plane, else none.
 pub struct AreaWeights<'a> {
-    basis: AreaBasis,
     cells: Option<Array2<f64>>,
     emission_deg: Option<&'a Array2<f32>>,
 }
 
 impl<'a> AreaWeights<'a> {
-    /// Cells when latitude and longitude span them, else 1/cos(emission) when there is an
-    /// emission backplane, else pixels.
     pub fn new(geometry: Geometry<'a>) -> AreaWeights<'a> {
         let cells = match (geometry.latitude, geometry.longitude) {
             (Some(lat), Some(lon)) => super::area::cell_areas_sr(lat.view(), lon.view()),
             _ => None,
         };
-        let basis = match (&cells, geometry.emission) {
-            (Some(_), _) => AreaBasis::Cells,
-            (None, Some(_)) => AreaBasis::Emission,
-            (None, None) => AreaBasis::Pixels,
-        };
         AreaWeights {
-            basis,
             cells,
             emission_deg: geometry.emission,
         }
     }
 
     pub fn basis(&self) -> AreaBasis {
-        self.basis
+        match (&self.cells, self.emission_deg) {
+            (Some(_), _) => AreaBasis::Cells,
+            (None, Some(_)) => AreaBasis::Emission,
+            (None, None) => AreaBasis::Pixels,
+        }
     }
 
     /// Pixel (r, c)'s area; 0 for a pixel that has data but no latitude or longitude.
     pub fn of(&self, r: usize, c: usize) -> f64 {
-        match (self.basis, &self.cells, self.emission_deg) {
-            (AreaBasis::Cells, Some(a), _) => {
+        match (&self.cells, self.emission_deg) {
+            (Some(a), _) => {
                 let v = a[(r, c)];
                 if v.is_finite() {
                     v
@@ -88,18 +84,18 @@ impl<'a> AreaWeights<'a> {
                     0.0
                 }
             }
-            (AreaBasis::Emission, _, Some(e)) => {
+            (None, Some(e)) => {
                 let deg = (e[(r, c)] as f64).clamp(0.0, MAX_EMISSION_DEG);
                 1.0 / deg.to_radians().cos()
             }
-            _ => 1.0,
+            (None, None) => 1.0,
         }
     }
 
     /// Unmixed pixels that count no area (on a cell basis: no latitude or longitude).
     pub fn missing(&self, out: &UnmixOutput) -> usize {
         match &self.cells {
-            Some(a) if self.basis == AreaBasis::Cells => out
+            Some(a) => out
                 .unmixed
                 .indexed_iter()
                 .filter(|((r, c), ok)| **ok && !a[(*r, *c)].is_finite())
