@@ -79,6 +79,7 @@ fn bench(c: &mut Criterion) {
         report_shade: false,
         noise: None,
         residuals: false,
+        ..Default::default()
     };
     let mut group = c.benchmark_group("fcls-f32");
     group.sample_size(10);

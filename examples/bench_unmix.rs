@@ -32,6 +32,7 @@ fn main() -> anyhow::Result<()> {
         report_shade: false,
         noise: None,
         residuals: false,
+        ..Default::default()
     };
     let mut times = Vec::new();
     let mut out = None;

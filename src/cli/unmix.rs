@@ -71,6 +71,14 @@ pub struct UnmixArgs {
     /// Also write residual.fits, the per-band residual y − Ea.
     #[arg(long)]
     pub residuals: bool,
+    /// Also write covariance.fits: each pixel's full covariance of the reported planes
+    /// (upper triangle), which epoch comparison uses.
+    #[arg(long)]
+    pub covariance: bool,
+    /// False-alarm probability of the unexplained test: a pixel whose residual is this
+    /// improbable under the noise (χ² test) is flagged unexplained. Default 0.001.
+    #[arg(long, value_name = "P", allow_hyphen_values = true)]
+    pub unexplained_p: Option<f64>,
     /// Arithmetic of the solver: f32 (fast, default) or f64 (reference).
     #[arg(long, value_name = "P", value_parser = ["f32", "f64"])]
     pub precision: Option<String>,
@@ -145,6 +153,18 @@ impl UnmixArgs {
             "--residuals",
             self.residuals.then_some(true),
             |r, v| r.residuals = v,
+        );
+        d.flag(
+            "unexplained_p",
+            "--unexplained-p",
+            self.unexplained_p,
+            |r, v| r.unexplained_p = v,
+        );
+        d.flag(
+            "covariance",
+            "--covariance",
+            self.covariance.then_some(true),
+            |r, v| r.covariance = v,
         );
         d.flag(
             "precision",

@@ -21,12 +21,15 @@ pub enum ImageData<'a> {
     Plane(ArrayView2<'a, f32>),
     /// A (row, column) plane of int16 labels.
     Labels(ArrayView2<'a, i16>),
+    /// A (row, column) plane of uint8 bits (BITPIX 8, FITS's unsigned byte).
+    Bits(ArrayView2<'a, u8>),
 }
 
 impl ImageData<'_> {
     fn bitpix(&self) -> i64 {
         match self {
             ImageData::Labels(_) => 16,
+            ImageData::Bits(_) => 8,
             _ => -32,
         }
     }
@@ -37,11 +40,12 @@ impl ImageData<'_> {
             ImageData::Cube(a) => vec![a.dim().1, a.dim().0, a.dim().2],
             ImageData::Plane(a) => vec![a.dim().1, a.dim().0],
             ImageData::Labels(a) => vec![a.dim().1, a.dim().0],
+            ImageData::Bits(a) => vec![a.dim().1, a.dim().0],
         }
     }
 
     fn byte_len(&self) -> usize {
-        self.axes().iter().product::<usize>() * if self.bitpix() == 16 { 2 } else { 4 }
+        self.axes().iter().product::<usize>() * (self.bitpix().unsigned_abs() as usize / 8)
     }
 
     /// Streams the samples big-endian, one band plane at a time (one plane of memory).
@@ -64,6 +68,10 @@ impl ImageData<'_> {
             }
             ImageData::Labels(p) => {
                 let buf: Vec<u8> = p.iter().flat_map(|v| v.to_be_bytes()).collect();
+                w.write_all(&buf)?;
+            }
+            ImageData::Bits(p) => {
+                let buf: Vec<u8> = p.iter().copied().collect();
                 w.write_all(&buf)?;
             }
         }

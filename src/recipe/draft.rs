@@ -146,6 +146,12 @@ impl Draft {
                 "subset mode needs the fcls solver (it compares constrained fits)",
             ),
         })?;
+        if !(r.unexplained_p > 0.0 && r.unexplained_p < 0.5) {
+            return Err(self.broken(
+                "unexplained_p",
+                "the false-alarm probability must lie between 0 and 0.5 (0.001 is usual)",
+            ));
+        }
         let units = match scope {
             Scope::Unmix => None,
             Scope::Map => Some((self.unit_params()?, self.load_rules()?)),
@@ -161,6 +167,7 @@ impl Draft {
                 report_shade: r.shade,
                 noise: r.noise,
                 residuals: r.residuals,
+                false_alarm: r.unexplained_p,
             },
             selection: BandSelection {
                 range_um: r.range_um.map(|[a, b]| (a, b)),

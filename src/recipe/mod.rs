@@ -15,6 +15,8 @@
 //! # range_um = [0.4, 2.5]
 //! exclude_bands = []
 //! residuals = false
+//! covariance = false
+//! unexplained_p = 0.001     # false-alarm probability of the unexplained test
 //! precision = "f32"         # f32 (fast) or f64 (reference)
 //! photometry = "none"       # none, lambert or lommel-seeliger (needs the backplanes)
 //! # map only:
@@ -74,6 +76,10 @@ pub struct Recipe {
     pub range_um: Option<[f64; 2]>,
     pub exclude_bands: Vec<usize>,
     pub residuals: bool,
+    /// Also write covariance.fits, the full covariance of the reported planes per pixel.
+    pub covariance: bool,
+    /// The unexplained test's false-alarm probability.
+    pub unexplained_p: f64,
     pub precision: Precision,
     /// The photometric law the cube is divided by before unmixing ("none" for none).
     #[serde(with = "law_word")]
@@ -296,6 +302,8 @@ impl Default for Recipe {
             range_um: None,
             exclude_bands: Vec::new(),
             residuals: false,
+            covariance: false,
+            unexplained_p: crate::unmix::misfit::DEFAULT_FALSE_ALARM,
             precision: Precision::F32,
             photometry: None,
             units: UnitCount::Auto,

@@ -3,7 +3,7 @@
 //!
 //! | file | product ([`products`]) |
 //! |---|---|
-//! | `abundance.fits`, `stderr.fits`, `fit-rmse.fits`, `residual.fits` (with residuals) | FITS planes |
+//! | `abundance.fits`, `stderr.fits`, `covariance.fits` (with covariance), `fit-rmse.fits`, `fit-flags.fits`, `residual.fits` (with residuals) | FITS planes |
 //! | `abundance/<id>.png`, `fit-rmse.png` | greyscale maps with a colour bar |
 //! | `units.fits`, `units.png`, `true-colour.png`, `units-legend.svg`, `units.csv`, `units-spectra.svg` | `map` only |
 //! | `summary.json` | [`summary`] |
@@ -108,7 +108,9 @@ pub fn write_folder(
 fn write_products(dir: &Path, r: &CubeResult) -> Result<(), WriteError> {
     products::abundance_planes(dir, r)?;
     products::stderr_planes(dir, r)?;
+    products::covariance_planes(dir, r)?;
     products::fit_rmse_plane(dir, r)?;
+    products::fit_flags_plane(dir, r)?;
     products::residual_planes(dir, r)?;
     products::abundance_pictures(dir, r)?;
     products::fit_rmse_picture(dir, r)?;

@@ -41,7 +41,20 @@ fn write_planes(
     info: &CubeInfo,
     content: &str,
 ) -> Result<(), WriteError> {
+    write_planes_with(path, ids, data, info, content, Vec::new())
+}
+
+/// [`write_planes`] with `extra` cards before the plane names.
+fn write_planes_with(
+    path: &Path,
+    ids: &[String],
+    data: &Array3<f32>,
+    info: &CubeInfo,
+    content: &str,
+    extra: Vec<Card>,
+) -> Result<(), WriteError> {
     let mut cards = common_cards(info, content);
+    cards.extend(extra);
     for (i, id) in ids.iter().enumerate() {
         cards.push(Card::new(
             &format!("PLANE{}", i + 1),
@@ -109,6 +122,82 @@ pub fn stderr_planes(dir: &Path, r: &CubeResult) -> Result<(), WriteError> {
         &r.cube.info,
         "standard errors of the abundances",
     )
+}
+
+/// `covariance.fits` (with `--covariance`): each pixel's covariance of the reported planes,
+/// the upper triangle row by row — plane (i, j), i ≤ j, at i·P − i(i − 1)/2 + (j − i) — with
+/// PLANEn naming each as "id_i,id_j" and the layout in the header.
+pub fn covariance_planes(dir: &Path, r: &CubeResult) -> Result<(), WriteError> {
+    if !r.recipe.covariance {
+        return Ok(());
+    }
+    let (ids, planes) = r.unmixed.covariance_planes();
+    let layout = vec![
+        Card::new(
+            "COVORDER",
+            Value::Integer(r.unmixed.ids.len() as i64),
+            "P: planes of abundance.fits covered",
+        ),
+        Card::new(
+            "COVLAYOU",
+            Value::Text("upper triangle, row by row".into()),
+            "(i,j) at i*P-i*(i-1)/2+j-i+1",
+        ),
+    ];
+    write_planes_with(
+        &dir.join("covariance.fits"),
+        &ids,
+        &planes,
+        &r.cube.info,
+        "covariance of the abundance planes, upper triangle per pixel",
+        layout,
+    )
+}
+
+/// The bits of `fit-flags.fits`.
+pub mod flag_bits {
+    /// A member held at zero whose KKT multiplier is within 2σ of zero: the noise could
+    /// have made it non-zero, so the Cramér–Rao errors describe a truncated estimate.
+    pub const BOUNDARY: u8 = 1;
+    /// Fitted with a thermal term (reserved for hot-spot fitting; not set yet).
+    pub const THERMAL: u8 = 2;
+    /// Unexplained by the library: the χ² test of the residual failed.
+    pub const UNEXPLAINED: u8 = 4;
+}
+
+/// `fit-flags.fits`: one uint8 bit plane, bits in [`flag_bits`] and in the header.
+pub fn fit_flags_plane(dir: &Path, r: &CubeResult) -> Result<(), WriteError> {
+    let out = r.unmixed;
+    let flags = ndarray::Array2::from_shape_fn(out.unmixed.dim(), |(y, x)| {
+        let at = |a: &ndarray::Array2<bool>| a.get((y, x)).copied().unwrap_or(false);
+        flag_bits::BOUNDARY * at(&out.boundary) as u8
+            + flag_bits::UNEXPLAINED * at(&out.misfit.flagged) as u8
+    });
+    let mut cards = common_cards(&r.cube.info, "fit flags, bits");
+    for (key, bit, what) in [
+        (
+            "FLAG1",
+            flag_bits::BOUNDARY,
+            "boundary: member at 0 within 2 sigma",
+        ),
+        (
+            "FLAG2",
+            flag_bits::THERMAL,
+            "thermal: fitted with a thermal term",
+        ),
+        (
+            "FLAG4",
+            flag_bits::UNEXPLAINED,
+            "unexplained: chi-square test failed",
+        ),
+    ] {
+        cards.push(Card::new(key, Value::Integer(bit as i64), what));
+    }
+    let primary = ImageHdu {
+        data: ImageData::Bits(flags.view()),
+        cards,
+    };
+    write_file(&dir.join("fit-flags.fits"), &primary, &[])
 }
 
 /// `fit-rmse.fits`: the fit RMSE per pixel.

@@ -1,6 +1,6 @@
 //! What `summary.json` holds: the unmixing part (members, groups, per-member statistics,
-//! masked pixels, the model used) and, for `map`, the units part (units, classes, the
-//! unexplained test, regions, the unit-count scores, the area weighting). Dedicated output
+//! masked pixels, the model used, the unexplained test, the boundary count) and, for `map`,
+//! the units part (units, classes, regions, the unit-count scores, the area weighting). Dedicated output
 //! types: the file format is a promise, the numeric internals may change.
 
 use serde::Serialize;
@@ -36,6 +36,11 @@ pub struct UnmixSummary<'a> {
     pub bands_used: usize,
     pub condition_number: Option<f64>,
     pub enumerated_pixels: usize,
+    /// The χ² test of the residuals: its probability, noise model and count.
+    pub unexplained_test: &'a unmix::misfit::MisfitSummary,
+    /// Pixels whose solution sits on a constraint boundary the noise could move (bit 1 of
+    /// fit-flags.fits).
+    pub boundary_pixels: usize,
     pub warnings: &'a [String],
 }
 
@@ -80,6 +85,8 @@ pub fn unmix_summary<'a>(r: &CubeResult<'a>) -> UnmixSummary<'a> {
         bands_used: model.bands(),
         condition_number: model.condition.is_finite().then_some(model.condition),
         enumerated_pixels: c.enumerated,
+        unexplained_test: &out.misfit.summary,
+        boundary_pixels: out.boundary.iter().filter(|b| **b).count(),
         warnings: r.warnings,
     }
 }
@@ -121,10 +128,6 @@ pub fn units_summary(r: &CubeResult, map: &UnitMap) -> serde_json::Value {
         "units": units,
         "classes": map.classes,
         "unexplained_pixels": map.unexplained_pixels,
-        "unexplained_test": format!(
-            "fit RMSE above {} × the median fit RMSE ({:.3e})",
-            crate::units::UNEXPLAINED_FACTOR, map.noise_level
-        ),
         "regions_before_min_area": map.regions_before,
         "regions_after_min_area": map.regions_after,
         "unit_count_scores": map.scores.iter().map(|(k, s)| serde_json::json!({"units": k, "score": s})).collect::<Vec<_>>(),

@@ -1,61 +1,39 @@
-//! What the clustering sees: the unexplained test that sets pixels apart first, and the
-//! feature vector of every other pixel.
+//! What the clustering sees: the pixels the unexplained test ([`crate::unmix::misfit`])
+//! set apart, and the feature vector of every other pixel.
 //!
-//! - **Unexplained**: a pixel whose fit RMSE exceeds [`UNEXPLAINED_FACTOR`] times the
-//!   noise level of the cube (the median fit RMSE of unmixed pixels, a robust estimate of
-//!   the noise when most pixels fit) joins the class `unexplained` instead of a unit.
+//! - **Unexplained**: a pixel whose residual is improbable under the noise (a χ² test at
+//!   the recipe's false-alarm probability) joins the class `unexplained` instead of a unit.
 //! - **Features**: the abundance vector, shade removed and renormalised (the planes
 //!   `unmix` reports), unscaled: abundances share one unit (fraction of the pixel), so
 //!   Euclidean distance weighs every member alike; optionally the albedo (1 − shade
-//!   fraction) and the fit RMSE divided by the unexplained threshold, both 0–1.
+//!   fraction) and the fit's misfit ratio √(χ²/threshold), both 0–1.
 
-use super::{UnitParams, UNEXPLAINED_FACTOR};
+use super::UnitParams;
 use crate::unmix::UnmixOutput;
 
 /// The unmixed pixels, split by the unexplained test.
 pub struct Screened {
-    /// The median fit RMSE of unmixed pixels.
-    pub noise_level: f64,
-    /// RMSE above this marks a pixel unexplained.
-    pub threshold: f64,
     /// Pixels to cluster, in row-major order.
     pub explained: Vec<(usize, usize)>,
     pub unexplained: Vec<(usize, usize)>,
 }
 
-fn median(mut v: Vec<f64>) -> f64 {
-    if v.is_empty() {
-        return f64::NAN;
-    }
-    v.sort_by(f64::total_cmp);
-    v[v.len() / 2]
-}
-
-/// Applies the unexplained test to every unmixed pixel.
+/// Splits the unmixed pixels by the unexplained test the unmixing ran.
 pub fn screen(out: &UnmixOutput) -> Screened {
-    let noise_level = median(
-        out.unmixed
-            .indexed_iter()
-            .filter(|(_, ok)| **ok)
-            .map(|((r, c), _)| out.rmse[(r, c)] as f64)
-            .collect(),
-    );
-    let threshold = UNEXPLAINED_FACTOR * noise_level;
     let mut explained = Vec::new();
     let mut unexplained = Vec::new();
+    let flags = &out.misfit.flagged;
     for ((r, c), ok) in out.unmixed.indexed_iter() {
         if !*ok {
             continue;
         }
-        if out.rmse[(r, c)] as f64 > threshold {
+        if flags.get((r, c)).copied().unwrap_or(false) {
             unexplained.push((r, c));
         } else {
             explained.push((r, c));
         }
     }
     Screened {
-        noise_level,
-        threshold,
         explained,
         unexplained,
     }
@@ -69,11 +47,10 @@ pub struct Features<'a> {
     shade: Option<usize>,
     albedo: bool,
     rmse: bool,
-    threshold: f64,
 }
 
 impl<'a> Features<'a> {
-    pub fn new(out: &'a UnmixOutput, p: &UnitParams, threshold: f64) -> Features<'a> {
+    pub fn new(out: &'a UnmixOutput, p: &UnitParams) -> Features<'a> {
         Features {
             out,
             materials: (0..out.ids.len())
@@ -82,7 +59,6 @@ impl<'a> Features<'a> {
             shade: out.ids.iter().position(|i| i == "shade"),
             albedo: p.albedo,
             rmse: p.rmse,
-            threshold,
         }
     }
 
@@ -105,7 +81,8 @@ impl<'a> Features<'a> {
             k += 1;
         }
         if self.rmse {
-            x[k] = out.rmse[(r, c)] as f64 / self.threshold;
+            let q = out.misfit.ratio.get((r, c)).copied().unwrap_or(f32::NAN) as f64;
+            x[k] = if q.is_finite() { q.min(1.0) } else { 0.0 };
         }
     }
 }

@@ -3,9 +3,9 @@
 //! named by rules and coloured like its material.
 //!
 //! - [`params`]: the checked parameters and their errors.
-//! - [`features`]: the unexplained test (fit RMSE above [`UNEXPLAINED_FACTOR`] times the
-//!   median fit RMSE) and each pixel's feature vector (abundances; optionally the albedo
-//!   and the scaled fit RMSE).
+//! - [`features`]: the pixels the unexplained test (a χ² test of the residual against the
+//!   noise, [`crate::unmix::misfit`]) sets apart, and each pixel's feature vector
+//!   (abundances; optionally the albedo and the misfit ratio).
 //! - [`cluster`], [`kmeans`]: k-means by default; Gaussian mixture; DBSCAN.
 //! - [`regions`]: the minimum mapping unit (8-connected regions merged away).
 //! - [`stats`], [`area`]: per-unit statistics and the area each pixel stands for (the
@@ -43,8 +43,6 @@ pub use rules::Rules;
 use stats::AreaWeights;
 pub use stats::{AreaBasis, Geometry};
 
-/// Fit RMSE above this many times the median marks a pixel unexplained.
-pub const UNEXPLAINED_FACTOR: f64 = 5.0;
 /// Unit colours closer than this (CIE 1976 ΔE*ab) are nudged apart.
 pub const MIN_DELTA_E: f64 = 10.0;
 /// Emission angles beyond this count as this in area weights, degrees.
@@ -80,8 +78,6 @@ pub struct UnitMap {
     /// Units in label order; an unexplained entry last when any pixel is unexplained.
     pub units: Vec<Unit>,
     pub unexplained_pixels: usize,
-    /// The noise level the unexplained test used (median fit RMSE).
-    pub noise_level: f64,
     pub regions_before: usize,
     pub regions_after: usize,
     /// Score per K tried, when K was chosen (silhouette for k-means, BIC for the mixture).
@@ -105,7 +101,7 @@ pub fn classify(
     p.check()?;
     let (rows, cols, _) = out.abundance.dim();
     let screened = features::screen(out);
-    let features = Features::new(out, p, screened.threshold);
+    let features = Features::new(out, p);
     let ids: Vec<String> = features
         .materials
         .iter()
@@ -186,7 +182,10 @@ pub fn classify(
         let (class, label, colour) = if l == unexplained_id {
             (
                 rules::UNEXPLAINED.to_string(),
-                "unexplained by the library (fit far worse than the noise)".to_string(),
+                format!(
+                    "unexplained by the library (residual improbable under the noise, p < {})",
+                    out.misfit.summary.false_alarm
+                ),
                 [255, 0, 255],
             )
         } else {
@@ -221,7 +220,6 @@ pub fn classify(
         labels,
         units,
         unexplained_pixels: unexplained.len(),
-        noise_level: screened.noise_level,
         regions_before,
         regions_after,
         scores: fitted.scores,

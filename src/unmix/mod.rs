@@ -16,12 +16,15 @@
 //! 91:8098); per-pixel endmember subsets (Roberts et al. 1998, Remote Sens. Environ.
 //! 65:267); block principal pivoting (Júdice & Pires 1994, Comput. Oper. Res. 21:587).
 //! Standard errors use the constrained Cramér–Rao form σ²[G⁻¹ − G⁻¹11ᵀG⁻¹/(1ᵀG⁻¹1)] on the
-//! passive set.
+//! passive set, carried through the renormalisation by the delta method and, in subset
+//! mode, through the BIC-weighted mixture ([`errors`]).
 //!
 //! This module does no I/O and never prints.
 
 #[cfg(target_arch = "x86_64")]
 mod avx2;
+pub mod errors;
+pub mod misfit;
 pub mod model;
 mod output;
 pub mod params;
@@ -52,33 +55,38 @@ pub struct PlaneStats {
 
 /// Per-plane statistics over the unmixed pixels.
 pub fn plane_stats(out: &UnmixOutput) -> Vec<PlaneStats> {
+    let p = out.ids.len();
+    let mut n = 0usize;
+    let (mut s, mut s2) = (vec![0.0f64; p], vec![0.0f64; p]);
+    let (mut se, mut se_n) = (vec![0.0f64; p], vec![0usize; p]);
+    let (mut lo, mut hi) = (vec![f64::INFINITY; p], vec![f64::NEG_INFINITY; p]);
+    for ((r, c), ok) in out.unmixed.indexed_iter() {
+        if !ok {
+            continue;
+        }
+        n += 1;
+        let cov = out.covariance_at(r, c);
+        for j in 0..p {
+            let v = out.abundance[(r, c, j)] as f64;
+            s[j] += v;
+            s2[j] += v * v;
+            lo[j] = lo[j].min(v);
+            hi[j] = hi[j].max(v);
+            if let Some(e) = cov.as_ref().map(|cv| cv[j * p + j].max(0.0).sqrt() as f32) {
+                if e.is_finite() {
+                    se[j] += e as f64;
+                    se_n[j] += 1;
+                }
+            }
+        }
+    }
     out.ids
         .iter()
         .enumerate()
         .map(|(j, id)| {
-            let mut n = 0usize;
-            let (mut s, mut s2, mut se) = (0.0f64, 0.0f64, 0.0f64);
-            let (mut lo, mut hi) = (f64::INFINITY, f64::NEG_INFINITY);
-            let mut se_n = 0usize;
-            for ((r, c), ok) in out.unmixed.indexed_iter() {
-                if !ok {
-                    continue;
-                }
-                let v = out.abundance[(r, c, j)] as f64;
-                n += 1;
-                s += v;
-                s2 += v * v;
-                lo = lo.min(v);
-                hi = hi.max(v);
-                let e = out.stderr_at(r, c, j) as f64;
-                if e.is_finite() {
-                    se += e;
-                    se_n += 1;
-                }
-            }
-            let mean = if n > 0 { s / n as f64 } else { f64::NAN };
+            let mean = if n > 0 { s[j] / n as f64 } else { f64::NAN };
             let var = if n > 1 {
-                (s2 / n as f64 - mean * mean).max(0.0)
+                (s2[j] / n as f64 - mean * mean).max(0.0)
             } else {
                 0.0
             };
@@ -86,9 +94,13 @@ pub fn plane_stats(out: &UnmixOutput) -> Vec<PlaneStats> {
                 id: id.clone(),
                 mean,
                 std: var.sqrt(),
-                min: lo,
-                max: hi,
-                mean_stderr: if se_n > 0 { se / se_n as f64 } else { f64::NAN },
+                min: lo[j],
+                max: hi[j],
+                mean_stderr: if se_n[j] > 0 {
+                    se[j] / se_n[j] as f64
+                } else {
+                    f64::NAN
+                },
             }
         })
         .collect()

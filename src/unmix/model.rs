@@ -156,6 +156,56 @@ pub struct Model {
     /// κ of E (with shade) and a row of ones.
     pub condition: f64,
     pub closest_pairs: Vec<Pair>,
+    /// Every passive set's covariance factor and multiplier spreads, for the standard
+    /// errors, the covariance product and the boundary flag.
+    pub spreads: std::sync::Arc<Spreads>,
+}
+
+/// Per passive set P: the covariance factor K (M × M, row-major; σ²K is the covariance of
+/// the raw abundances a, zero outside P: the top-left block of the bordered system's
+/// inverse) and the multipliers' spread factors ‖W_μ,j‖ (σ times it is the standard
+/// deviation of μ_j, since z = Qᵀy carries the noise of y unchanged, σ²I).
+#[derive(Debug, Clone)]
+pub struct Spreads {
+    pub columns: usize,
+    stride: usize,
+    data: Vec<f64>,
+    ok: Vec<bool>,
+}
+
+impl Spreads {
+    fn new(columns: usize) -> Spreads {
+        let stride = columns * columns + columns;
+        Spreads {
+            columns,
+            stride,
+            data: vec![0.0; stride << columns],
+            ok: vec![false; 1 << columns],
+        }
+    }
+
+    /// K of passive set `mask` (M × M, row-major), or `None` where the set is singular or
+    /// was not needed.
+    #[inline]
+    pub fn covariance(&self, mask: u32) -> Option<&[f64]> {
+        let m = self.columns;
+        self.ok
+            .get(mask as usize)
+            .copied()
+            .unwrap_or(false)
+            .then(|| &self.data[mask as usize * self.stride..][..m * m])
+    }
+
+    /// The multipliers' spread factors of passive set `mask` (M values; 0 inside P).
+    #[inline]
+    pub fn multipliers(&self, mask: u32) -> Option<&[f64]> {
+        let m = self.columns;
+        self.ok
+            .get(mask as usize)
+            .copied()
+            .unwrap_or(false)
+            .then(|| &self.data[mask as usize * self.stride + m * m..][..m])
+    }
 }
 
 impl Model {
@@ -321,6 +371,7 @@ impl Model {
         let dims = q.ncols();
         let mut table64 = Table::with_capacity(m, dims, 0.0f64);
         let mut table32 = Table::with_capacity(m, dims, 0.0f32);
+        let mut spreads = Spreads::new(m);
         for mask in 0..(1u32 << m) {
             if !needed(mask) {
                 continue;
@@ -336,6 +387,11 @@ impl Model {
             }
             table64.ok[mask as usize] = true;
             table32.ok[mask as usize] = true;
+            let at = mask as usize * spreads.stride;
+            spreads.data[at..at + m * m].copy_from_slice(&sol.cov);
+            spreads.data[at + m * m..at + spreads.stride]
+                .copy_from_slice(&sol.multiplier_spreads(&r));
+            spreads.ok[mask as usize] = true;
         }
         Ok(Model {
             ids,
@@ -351,15 +407,26 @@ impl Model {
             table32,
             condition,
             closest_pairs: closest,
+            spreads: std::sync::Arc::new(spreads),
         })
     }
 
     /// The diagonal of the covariance factor of passive set `mask` (σ² times it is each
-    /// abundance's variance: the constrained Cramér–Rao form with the sum-to-one
-    /// constraint), or `None` where the set's system is singular.
+    /// raw abundance's variance: the constrained Cramér–Rao form with the sum-to-one
+    /// constraint), or `None` where the set's system is singular. Recomputed from E (the
+    /// reference for tests); the run reads [`Spreads`].
     pub fn covariance_factor(&self, mask: u32) -> Option<Vec<f64>> {
         let g = self.e.t().dot(&self.e);
-        solution_map(&g, mask, self.solver.sum_to_one()).map(|s| s.var)
+        let m = g.nrows();
+        solution_map(&g, mask, self.solver.sum_to_one())
+            .map(|s| (0..m).map(|i| s.cov[i * m + i]).collect())
+    }
+
+    /// The whole covariance factor K of passive set `mask` (M × M, row-major), recomputed
+    /// from E like [`Model::covariance_factor`].
+    pub fn covariance_matrix(&self, mask: u32) -> Option<Vec<f64>> {
+        let g = self.e.t().dot(&self.e);
+        solution_map(&g, mask, self.solver.sum_to_one()).map(|s| s.cov)
     }
 }
 
@@ -396,8 +463,8 @@ struct SolutionMap {
     map: Vec<f64>,
     /// 2M.
     off: Vec<f64>,
-    /// Diagonal of the covariance factor on P (0 elsewhere).
-    var: Vec<f64>,
+    /// The covariance factor on P (M × M, row-major, 0 outside P).
+    cov: Vec<f64>,
 }
 
 impl SolutionMap {
@@ -413,8 +480,24 @@ impl SolutionMap {
             }
         }
         out.extend_from_slice(&self.off);
-        out.extend(self.var.iter().map(|v| v.sqrt()));
+        out.extend((0..m).map(|i| self.cov[i * m + i].max(0.0).sqrt()));
         out
+    }
+
+    /// ‖W_μ,j‖ over z for every column (W = map·Rᵀ, multiplier rows M..2M).
+    fn multiplier_spreads(&self, r: &Array2<f64>) -> Vec<f64> {
+        let m = self.m;
+        (0..m)
+            .map(|i| {
+                (0..r.nrows())
+                    .map(|k| {
+                        let w: f64 = (0..m).map(|j| self.map[(m + i) * m + j] * r[(k, j)]).sum();
+                        w * w
+                    })
+                    .sum::<f64>()
+                    .sqrt()
+            })
+            .collect()
     }
 }
 
@@ -431,7 +514,7 @@ fn solution_map(g: &Array2<f64>, mask: u32, sum_to_one: bool) -> Option<Solution
     let mut a_off = vec![0.0; m];
     let mut lam = vec![0.0; m];
     let mut lam0 = 0.0;
-    let mut var = vec![0.0; m];
+    let mut cov = vec![0.0; m * m];
     let size = k + sum_to_one as usize;
     let z = nalgebra::DMatrix::from_fn(size, size, |i, j| match (i < k, j < k) {
         (true, true) => g[(p[i], p[j])],
@@ -453,11 +536,11 @@ fn solution_map(g: &Array2<f64>, mask: u32, sum_to_one: bool) -> Option<Solution
     for (r, &pi) in p.iter().enumerate() {
         for (c, &pj) in p.iter().enumerate() {
             a_map[pi * m + pj] = zi[(r, c)];
+            cov[pi * m + pj] = zi[(r, c)];
         }
         if sum_to_one {
             a_off[pi] = zi[(r, k)];
         }
-        var[pi] = zi[(r, r)].max(0.0);
     }
     if sum_to_one {
         for (c, &pj) in p.iter().enumerate() {
@@ -477,5 +560,5 @@ fn solution_map(g: &Array2<f64>, mask: u32, sum_to_one: bool) -> Option<Solution
         }
         off[m + i] = (0..m).map(|t| g[(i, t)] * a_off[t]).sum::<f64>() + lam0;
     }
-    Some(SolutionMap { m, map, off, var })
+    Some(SolutionMap { m, map, off, cov })
 }

@@ -1,7 +1,14 @@
 //! What unmixing produces: the abundance planes, the standard errors in factored form,
 //! the fit RMSE, the pixel counts, and the options of a run that are not model parameters.
 
-use ndarray::{Array2, Array3};
+use std::sync::Arc;
+
+use ndarray::{Array2, Array3, Axis};
+use rayon::prelude::*;
+
+use super::errors::{reported_covariance, upper_index};
+use super::misfit::Misfit;
+use super::model::Spreads;
 
 /// Pixels whose materials sum below this are too dark to unmix.
 pub const DARK_LIMIT: f64 = 0.02;
@@ -35,55 +42,139 @@ pub struct UnmixOutput {
     pub subset: Option<Array2<u16>>,
     pub residual: Option<Array3<f32>>,
     pub unmixed: Array2<bool>,
+    /// Pixels on a constraint boundary the noise could move ([`super::errors::boundary`]).
+    pub boundary: Array2<bool>,
+    /// The unexplained test ([`super::misfit`]).
+    pub misfit: Misfit,
     pub counts: Counts,
 }
 
-/// The standard errors in factored form. Pixel (r, c)'s standard error on plane j is
-/// `scale[(r, c)] · factor_j(passive[(r, c)])`: the scale is σ / Σa (the noise level over
-/// the material sum that renormalises the abundances) and the factor √c_j the constrained
-/// Cramér–Rao factor of the pixel's passive set, which the model's table holds for every
-/// set. Six bytes per pixel instead of four per plane; the planes are formed when asked
-/// for. The shade plane's error is σ·√c (not renormalised), with σ = scale · (1 − shade)
-/// (the sum-to-one constraint that a shade column comes with); NaN without a shade column.
+/// The standard errors in factored form. Pixel (r, c)'s covariance on the reported planes
+/// follows from `scale[(r, c)]` (σ / Σa: the noise level over the material sum that
+/// renormalises the abundances), its passive set's covariance factor K (the constrained
+/// Cramér–Rao factor, which the model holds for every set) and its reported abundances,
+/// by the delta method ([`super::errors`]). Six bytes per pixel instead of four per plane;
+/// the planes are formed when asked for. Subset mode keeps each pixel's mixture covariance
+/// instead (`mixture`), because its between-subset part is the pixel's own.
 #[derive(Debug, Clone)]
 pub struct StdErrors {
     /// σ / Σa per pixel; NaN where not unmixed.
     pub scale: Array2<f32>,
     /// The passive set per pixel (bit j: column j); 0 where not unmixed.
     pub passive: Array2<u16>,
-    /// √c_j of every passive set, `columns` values per set (NaN for singular sets).
-    pub(super) factors: Vec<f32>,
-    pub(super) columns: usize,
-    pub(super) materials: usize,
-    /// Whether the model has a shade column (the last).
+    pub(super) spreads: Arc<Spreads>,
     pub(super) shade_column: bool,
-}
-
-impl StdErrors {
-    /// The factors √c_j of passive set `set` (one per column: materials, then shade).
-    pub fn factors(&self, set: u16) -> &[f32] {
-        &self.factors[set as usize * self.columns..][..self.columns]
-    }
+    /// Subset mode: the reported planes' covariance per pixel, upper triangle row by row
+    /// ([`upper_index`]); NaN where not unmixed.
+    pub(super) mixture: Option<Array3<f32>>,
 }
 
 impl UnmixOutput {
+    /// The materials (members and groups) among the planes.
+    fn material_planes(&self) -> usize {
+        self.ids.len() - self.reports_shade() as usize
+    }
+
+    fn reports_shade(&self) -> bool {
+        self.ids.last().is_some_and(|id| id == "shade")
+    }
+
+    /// The covariance of pixel (r, c)'s reported planes (P × P, row-major, P the plane
+    /// count), or `None` where the pixel was not unmixed or its passive set is singular.
+    pub fn covariance_at(&self, r: usize, c: usize) -> Option<Vec<f64>> {
+        let p = self.ids.len();
+        if !self.unmixed[(r, c)] {
+            return None;
+        }
+        let mut out = vec![0.0; p * p];
+        if let Some(mix) = &self.errors.mixture {
+            for i in 0..p {
+                for j in i..p {
+                    let v = mix[(r, c, upper_index(p, i, j))] as f64;
+                    out[i * p + j] = v;
+                    out[j * p + i] = v;
+                }
+            }
+            return Some(out);
+        }
+        let e = &self.errors;
+        let k = e.spreads.covariance(e.passive[(r, c)] as u32)?;
+        let mat = self.material_planes();
+        let f: Vec<f64> = (0..mat).map(|j| self.abundance[(r, c, j)] as f64).collect();
+        let shade = self
+            .reports_shade()
+            .then(|| self.abundance[(r, c, mat)] as f64);
+        reported_covariance(
+            k,
+            e.spreads.columns,
+            e.shade_column,
+            &f,
+            e.scale[(r, c)] as f64,
+            shade,
+            &mut out,
+        );
+        Some(out)
+    }
+
     /// The standard error of pixel (r, c) on plane j (NaN where not unmixed).
     pub fn stderr_at(&self, r: usize, c: usize, j: usize) -> f32 {
-        let e = &self.errors;
-        let scale = e.scale[(r, c)];
-        let f = e.factors(e.passive[(r, c)]);
-        if j < e.materials {
-            scale * f[j]
-        } else if e.shade_column {
-            scale * (1.0 - self.abundance[(r, c, j)]) * f[e.materials]
-        } else {
-            f32::NAN
+        match self.covariance_at(r, c) {
+            Some(cov) => cov[j * self.ids.len() + j].max(0.0).sqrt() as f32,
+            None => f32::NAN,
         }
+    }
+
+    /// `n` planes made from each unmixed pixel's covariance by `fill` (NaN elsewhere), rows
+    /// in parallel.
+    fn per_pixel(&self, n: usize, fill: impl Fn(&[f64], &mut [f32]) + Sync) -> Array3<f32> {
+        let (rows, cols, _) = self.abundance.dim();
+        let mut out = Array3::from_elem((rows, cols, n), f32::NAN);
+        out.axis_iter_mut(Axis(0))
+            .into_par_iter()
+            .enumerate()
+            .for_each(|(r, mut row)| {
+                for c in 0..cols {
+                    if let Some(cov) = self.covariance_at(r, c) {
+                        let mut vals = vec![0.0f32; n];
+                        fill(&cov, &mut vals);
+                        for (k, v) in vals.into_iter().enumerate() {
+                            row[(c, k)] = v;
+                        }
+                    }
+                }
+            });
+        out
     }
 
     /// The standard errors as planes, (row, col, plane) like the abundances.
     pub fn stderr(&self) -> Array3<f32> {
-        Array3::from_shape_fn(self.abundance.dim(), |(r, c, j)| self.stderr_at(r, c, j))
+        let p = self.ids.len();
+        self.per_pixel(p, |cov, out| {
+            for (j, o) in out.iter_mut().enumerate() {
+                *o = cov[j * p + j].max(0.0).sqrt() as f32;
+            }
+        })
+    }
+
+    /// The covariance planes: the upper triangle of each pixel's covariance, row by row
+    /// ([`upper_index`]), with their ids "a,b".
+    pub fn covariance_planes(&self) -> (Vec<String>, Array3<f32>) {
+        let p = self.ids.len();
+        let n = p * (p + 1) / 2;
+        let mut ids = Vec::with_capacity(n);
+        for i in 0..p {
+            for j in i..p {
+                ids.push(format!("{},{}", self.ids[i], self.ids[j]));
+            }
+        }
+        let planes = self.per_pixel(n, |cov, out| {
+            for i in 0..p {
+                for j in i..p {
+                    out[upper_index(p, i, j)] = cov[i * p + j] as f32;
+                }
+            }
+        });
+        (ids, planes)
     }
 }
 
@@ -95,4 +186,17 @@ pub struct RunOptions {
     /// Noise σ for standard errors; `None` estimates per pixel.
     pub noise: Option<f64>,
     pub residuals: bool,
+    /// The unexplained test's false-alarm probability ([`super::misfit`]).
+    pub false_alarm: f64,
+}
+
+impl Default for RunOptions {
+    fn default() -> Self {
+        RunOptions {
+            report_shade: true,
+            noise: None,
+            residuals: false,
+            false_alarm: super::misfit::DEFAULT_FALSE_ALARM,
+        }
+    }
 }

@@ -107,6 +107,8 @@ pub(super) struct Slots<'a> {
     pub(super) um: &'a mut [bool],
     pub(super) subset: Option<&'a mut [u16]>,
     pub(super) residual: Option<&'a mut [f32]>,
+    /// Subset mode: each pixel's covariance of the reported planes, upper triangle.
+    pub(super) mixture: Option<&'a mut [f32]>,
 }
 
 impl Slots<'_> {

@@ -33,6 +33,8 @@ use std::sync::atomic::{AtomicUsize, Ordering};
 use ndarray::{Array2, Array3, ArrayView2, ArrayView3};
 use rayon::prelude::*;
 
+use super::errors::boundary;
+use super::misfit::{self, Misfit};
 use super::model::Model;
 use super::output::{Counts, RunOptions, StdErrors, UnmixOutput};
 use super::passes::{rows_direct, variants};
@@ -176,6 +178,10 @@ pub fn unmix_with<T: Real>(
     let mut residual = opts
         .residuals
         .then(|| Array3::<f32>::from_elem((rows, cols, nb), f32::NAN));
+    let tri = planes * (planes + 1) / 2;
+    let mut mixture = model
+        .subset_size
+        .map(|_| Array3::<f32>::from_elem((rows, cols, tri), f32::NAN));
     let y = data.as_slice().expect("spectra are in standard layout");
     let valid = valid.as_slice().expect("standard layout");
     let kernel = rows_kernel::<T>(model.columns(), model.q.ncols(), vector && avx2_available());
@@ -199,8 +205,15 @@ pub fn unmix_with<T: Real>(
             um,
             subset: None,
             residual: None,
+            mixture: None,
         })
         .collect();
+    if let Some(m) = mixture.as_mut() {
+        let m = m.as_slice_mut().expect("standard");
+        for (t, chunk) in tasks.iter_mut().zip(m.chunks_mut(task * tri)) {
+            t.mixture = Some(chunk);
+        }
+    }
     if let Some(s) = subset.as_mut() {
         let s = s.as_slice_mut().expect("standard");
         for (t, chunk) in tasks.iter_mut().zip(s.chunks_mut(task)) {
@@ -242,27 +255,46 @@ pub fn unmix_with<T: Real>(
         rm.set_len(npx);
     }
     let shape3 = (rows, cols, planes);
-    UnmixOutput {
+    let scale = Array2::from_shape_vec((rows, cols), sc).expect("sized above");
+    let full = model.full_mask();
+    let boundary = match &subset {
+        None => boundary(data, model, passive.view(), scale.view(), &|_, _| full),
+        Some(pick) => boundary(
+            data,
+            model,
+            passive.view(),
+            scale.view(),
+            &|r, c| match pick[(r, c)] {
+                0 => 0,
+                s => model.subsets[s as usize - 1],
+            },
+        ),
+    };
+    let mut out = UnmixOutput {
         ids,
         abundance: Array3::from_shape_vec(shape3, ab).expect("sized above"),
         errors: StdErrors {
-            scale: Array2::from_shape_vec((rows, cols), sc).expect("sized above"),
+            scale,
             passive,
-            factors: (0..1u32 << plan.table.columns)
-                .flat_map(|set| match plan.table.entry(set) {
-                    Some(e) => e.sd.iter().map(|v| v.widen() as f32).collect(),
-                    None => vec![f32::NAN; plan.table.columns],
-                })
-                .collect(),
-            columns: plan.table.columns,
-            materials: plan.mat,
+            spreads: model.spreads.clone(),
             shade_column: model.shade,
+            mixture,
         },
         rmse: Array2::from_shape_vec((rows, cols), rm).expect("sized above"),
         active,
         subset,
         residual,
         unmixed,
+        boundary,
+        misfit: Misfit::default(),
         counts,
-    }
+    };
+    out.misfit = misfit::test(
+        &out,
+        data,
+        model.solver.sum_to_one(),
+        opts.noise,
+        opts.false_alarm,
+    );
+    out
 }

@@ -2,6 +2,7 @@
 //! every allowed subset of members is solved per pixel and scored by BIC, and the
 //! estimate averages the subsets' solutions (Roberts et al. 1998 for per-pixel subsets).
 
+use super::errors::{reported_covariance, upper_index};
 use super::output::Counts;
 use super::pixel::{finish, fit_of, residual, skipped, whiten, whitened_rss};
 use super::plan::{Plan, Slots};
@@ -25,6 +26,9 @@ pub(super) fn rows_subsets<T: Real, const M: usize, const D: usize, const FUSED:
     let n = nb as f64;
     let mut scores: Vec<f64> = Vec::new();
     let mut sols: Vec<[f64; M]> = Vec::new();
+    let mut sets: Vec<u32> = Vec::new();
+    let mut cov = vec![0.0f64; M * M];
+    let mut out = vec![0.0f64; plan.planes * plan.planes];
     let mut scratch = vec![T::zero(); nb];
     for (px, (y, &ok)) in y.chunks_exact(nb).zip(valid).enumerate() {
         if skipped(y, ok, slots, px, plan.planes, counts) {
@@ -34,8 +38,10 @@ pub(super) fn rows_subsets<T: Real, const M: usize, const D: usize, const FUSED:
         let yy: f64 = y.iter().map(|v| *v as f64 * *v as f64).sum();
         scores.clear();
         sols.clear();
+        sets.clear();
         let mut best_score = f64::INFINITY;
         let mut best_out = (0u32, false, 0u16);
+        let mut best_fit = (0.0f64, 0u32);
         for (s, &allowed) in model.subsets.iter().enumerate() {
             let mut a = [0.0f64; M];
             let o = pivot::<f64, M, D, FUSED>(&model.table64, &z, allowed, allowed, true, &mut a);
@@ -45,9 +51,11 @@ pub(super) fn rows_subsets<T: Real, const M: usize, const D: usize, const FUSED:
             let score = n * (rss / n).ln() + k * n.ln();
             scores.push(score);
             sols.push(a);
+            sets.push(o.passive);
             if score < best_score {
                 best_score = score;
                 best_out = (o.passive, o.enumerated, s as u16 + 1);
+                best_fit = (rss, k as u32);
             }
         }
         let mut wsum = 0.0;
@@ -67,10 +75,76 @@ pub(super) fn rows_subsets<T: Real, const M: usize, const D: usize, const FUSED:
             None => whitened_rss::<T, D, FUSED>(&z, yy, am, &plan.rcol),
             res => residual::<T, D, FUSED>(y, am, &plan.ecol, &mut scratch, res),
         };
-        let fit = fit_of(plan, rss, positives::<T, M, FUSED>(&a).count_ones());
+        let mut fit = fit_of(plan, rss, positives::<T, M, FUSED>(&a).count_ones());
+        // The noise level of the errors is the chosen subset's: the averaged solution
+        // counts every member any subset used as non-zero, which would leave too few
+        // degrees of freedom on a few bands.
+        fit.sigma = fit_of(plan, best_fit.0, best_fit.1).sigma;
         finish::<T, M, D>(plan, &a, fit, passive, slots, px, counts);
         if let Some(s) = slots.subset.as_deref_mut() {
             s[px] = if slots.um[px] { pick } else { 0 };
         }
+        if slots.um[px] {
+            let mean: [f64; M] = std::array::from_fn(|j| mean[j] / wsum);
+            mixture::<M>(
+                plan, &scores, best_score, &sols, &sets, &mean, fit.sigma, &mut cov,
+            );
+            let sum: f64 = mean[..D].iter().sum();
+            let f: [f64; D] = std::array::from_fn(|j| mean[j] / sum);
+            let shade = plan
+                .opts
+                .report_shade
+                .then(|| if model.shade { mean[D] } else { 1.0 - sum });
+            reported_covariance(&cov, M, model.shade, &f, 1.0 / sum, shade, &mut out);
+            if let Some(m) = slots.mixture.as_deref_mut() {
+                let p = plan.planes;
+                let tri = &mut m[px * p * (p + 1) / 2..][..p * (p + 1) / 2];
+                for i in 0..p {
+                    for j in i..p {
+                        tri[upper_index(p, i, j)] = out[i * p + j] as f32;
+                    }
+                }
+            }
+        }
+    }
+}
+
+/// The covariance of the BIC-weighted mean `mean` of the subsets' solutions: within-subset
+/// (σ²K of each subset's passive set) plus between-subset ((a_s − ā)(a_s − ā)ᵀ), weighted by
+/// exp(−ΔBIC/2) normalised; into `cov` (M × M). A subset whose set has no factor (singular)
+/// contributes its spread only.
+#[allow(clippy::too_many_arguments)]
+#[inline(always)]
+fn mixture<const M: usize>(
+    plan: &Plan<impl Real>,
+    scores: &[f64],
+    best: f64,
+    sols: &[[f64; M]],
+    sets: &[u32],
+    mean: &[f64; M],
+    sigma: f64,
+    cov: &mut [f64],
+) {
+    cov.fill(0.0);
+    let spreads = &plan.model.spreads;
+    let s2 = sigma * sigma;
+    let mut wsum = 0.0;
+    for ((score, sol), &set) in scores.iter().zip(sols).zip(sets) {
+        let w = (-(score - best) / 2.0).exp();
+        if w < 1e-12 {
+            continue;
+        }
+        wsum += w;
+        let d: [f64; M] = std::array::from_fn(|j| sol[j] - mean[j]);
+        let k = spreads.covariance(set);
+        for i in 0..M {
+            for j in 0..M {
+                let within = k.map_or(0.0, |k| s2 * k[i * M + j]);
+                cov[i * M + j] += w * (within + d[i] * d[j]);
+            }
+        }
+    }
+    for v in cov.iter_mut() {
+        *v /= wsum;
     }
 }

@@ -4,11 +4,13 @@
 mod bad_input;
 mod batch;
 mod cli;
+mod coverage;
 mod demo;
 mod external;
 mod library;
 mod library_cli;
 mod map_cli;
+mod misfit;
 mod out_folders;
 mod roundtrip;
 mod support;

@@ -103,6 +103,7 @@ fn demo_ari(name: &str, unmix: &UnmixParams) -> (f64, f64, thiomap::units::UnitM
         report_shade: true,
         noise: None,
         residuals: false,
+        ..Default::default()
     };
     let out =
         thiomap::unmix::unmix::<f32>(cube.data.view(), cube.valid.view(), &model, &opts, &|_| {});

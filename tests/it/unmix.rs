@@ -257,6 +257,7 @@ fn demo_rmse(
         report_shade: true,
         noise: None,
         residuals: false,
+        ..Default::default()
     };
     let out =
         thiomap::unmix::unmix::<f32>(cube.data.view(), cube.valid.view(), &model, &opts, &|_| {});
@@ -346,6 +347,7 @@ fn the_vectorised_kernels_agree_with_the_portable_ones() {
             report_shade: false,
             noise: None,
             residuals: trial % 2 == 0,
+            ..Default::default()
         };
         for solver in [Solver::Fcls, Solver::Nnls, Solver::SumToOne] {
             let md = model(&e, solver);
@@ -383,6 +385,7 @@ fn the_vectorised_kernels_agree_with_the_portable_ones() {
         report_shade: true,
         noise: None,
         residuals: false,
+        ..Default::default()
     };
     let run = |vector| {
         thiomap::unmix::unmix_with::<f32>(
@@ -440,6 +443,7 @@ fn the_rmse_agrees_however_it_is_computed() {
                 report_shade: true,
                 noise: None,
                 residuals,
+                ..Default::default()
             };
             (
                 thiomap::unmix::unmix::<f32>(
@@ -486,23 +490,28 @@ fn the_rmse_agrees_however_it_is_computed() {
 
 #[test]
 fn standard_errors_follow_the_constrained_cramer_rao_form() {
-    // REFERENCES (formulas): se_j = σ √c_j with c the diagonal of
-    // G⁻¹ − G⁻¹11ᵀG⁻¹/(1ᵀG⁻¹1) on the pixel's passive set (G = E_PᵀE_P) and
-    // σ² = RSS / (B − k + 1); the material errors are divided by the material sum, like the
-    // abundances, and the shade's is not. Recomputed here pixel by pixel from an f64 solve
-    // and `Model::covariance_factor`, apart from the factored form the run keeps.
+    // REFERENCES (formulas): the raw abundances' covariance is σ²K with K the top-left
+    // block of the bordered (KKT) system's inverse on the pixel's passive set,
+    // G⁻¹ − G⁻¹11ᵀG⁻¹/(1ᵀG⁻¹1), and σ² = RSS / (B − k + 1); the reported materials
+    // f = a / S (S the material sum) have covariance J σ²K Jᵀ with J = (I − f 1ᵀ) / S
+    // (delta method, REFERENCES #27, common practice); the shade's is σ²K_ss. Recomputed
+    // here pixel by pixel with explicit matrix products from an f64 solve and
+    // `Model::covariance_matrix`, apart from the factored form the run keeps.
     let (cube, model) = tile_with_default_model();
     let opts = thiomap::unmix::RunOptions {
         report_shade: true,
         noise: None,
         residuals: false,
+        ..Default::default()
     };
     let out =
         thiomap::unmix::unmix::<f64>(cube.data.view(), cube.valid.view(), &model, &opts, &|_| {});
     let planes = out.stderr();
     let (rows, cols, nb) = cube.data.dim();
     let mat = model.material_columns();
+    let m = model.columns();
     let mut checked = 0;
+    let mut moved = 0;
     for (r, c) in (0..rows * cols).step_by(7).map(|i| (i / cols, i % cols)) {
         if !out.unmixed[(r, c)] {
             for j in 0..=mat {
@@ -521,13 +530,30 @@ fn standard_errors_follow_the_constrained_cramer_rao_form() {
         let k = out.active[(r, c)] as f64;
         let rss = (out.rmse[(r, c)] as f64).powi(2) * nb as f64;
         let sigma = (rss / (nb as f64 - k + 1.0)).sqrt();
-        let f = model.covariance_factor(o.passive).unwrap();
+        let kk = model.covariance_matrix(o.passive).unwrap();
+        let f: Vec<f64> = a[..mat].iter().map(|v| v / sum).collect();
+        // J (mat × mat) = (I − f 1ᵀ) / S.
+        let jac = |i: usize, l: usize| ((i == l) as u8 as f64 - f[i]) / sum;
         for j in 0..=mat {
             let want = if j < mat {
-                sigma * f[j].sqrt() / sum
+                let mut v = 0.0;
+                for l in 0..mat {
+                    for q in 0..mat {
+                        v += jac(j, l) * kk[l * m + q] * jac(j, q);
+                    }
+                }
+                sigma * v.max(0.0).sqrt()
             } else {
-                sigma * f[j].sqrt()
+                sigma * kk[j * m + j].sqrt()
             };
+            let old_form = if j < mat {
+                sigma * kk[j * m + j].sqrt() / sum
+            } else {
+                want
+            };
+            if (old_form - want).abs() > 0.05 * want {
+                moved += 1;
+            }
             let got = out.stderr_at(r, c, j) as f64;
             assert_eq!(planes[(r, c, j)], got as f32);
             assert!(
@@ -538,6 +564,12 @@ fn standard_errors_follow_the_constrained_cramer_rao_form() {
         checked += 1;
     }
     assert!(checked > 1000, "only {checked} pixels compared");
+    // The renormalisation matters on this tile: dividing by S alone would be off by more
+    // than 5 % for many of the errors.
+    assert!(
+        moved > checked / 10,
+        "only {moved} errors moved by the delta method"
+    );
 }
 
 /// The shipped spectrometer tile and the default model for its bands (embedded library,

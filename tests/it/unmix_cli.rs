@@ -355,3 +355,69 @@ fn photometric_normalisation_is_recorded_and_needs_its_backplanes() {
     );
     assert!(!dir.path().join("r2").join("run.json").exists());
 }
+
+/// Every plane of a FITS file's primary HDU: (axes, values in file order).
+fn fits_values(path: &Path) -> (Vec<u64>, thiomap::fits::Hdu, Vec<f32>) {
+    let src = thiomap::fits::Source::open(path).unwrap();
+    let hdu = thiomap::fits::scan(&src).unwrap().remove(0);
+    let axes = hdu.axes();
+    let n: u64 = axes.iter().product();
+    let scaling = thiomap::fits::Scaling::from_header(&hdu.header).unwrap();
+    let mut out = vec![0.0f32; n as usize];
+    thiomap::fits::read_elements(&src, &hdu, &scaling, 0, &mut out, &mut Vec::new()).unwrap();
+    (axes, hdu, out)
+}
+
+#[test]
+fn covariance_fits_holds_each_pixels_covariance_of_the_reported_planes() {
+    let dir = tempfile::tempdir().unwrap();
+    let out = dir.path().join("r");
+    let run = unmix(
+        &demo_cube("brimveil-tile-spectrometer24.fits"),
+        &out,
+        &["--covariance"],
+    );
+    assert!(run.status.success(), "{}", stderr(&run));
+    let (se_axes, _, se) = fits_values(&out.join("stderr.fits"));
+    let (axes, hdu, cov) = fits_values(&out.join("covariance.fits"));
+    let p = se_axes[2] as usize;
+    let px = (axes[0] * axes[1]) as usize;
+    assert_eq!(axes[2] as usize, p * (p + 1) / 2, "upper triangle");
+    assert_eq!(hdu.header.i64("COVORDER"), Some(p as i64));
+    let at = |i: usize, j: usize| {
+        let (i, j) = (i.min(j), i.max(j));
+        i * p - i * i.saturating_sub(1) / 2 + (j - i)
+    };
+    let name = hdu.header.str(&format!("PLANE{}", at(0, 1) + 1)).unwrap();
+    assert!(name.contains(','), "{name}");
+    let (mut checked, mut mat) = (0, p - 1);
+    if hdu.header.str(&format!("PLANE{}", at(p - 1, p - 1) + 1)) != Some("shade,shade") {
+        mat = p;
+    }
+    for k in 0..px {
+        let var = cov[at(0, 0) * px + k];
+        if var.is_nan() {
+            continue;
+        }
+        for i in 0..p {
+            // The diagonal is the square of stderr.fits.
+            let s = se[i * px + k];
+            let v = cov[at(i, i) * px + k];
+            assert!(
+                (v.sqrt() - s).abs() <= 1e-5 * s + 1e-9,
+                "pixel {k} plane {i}"
+            );
+            // The renormalised materials sum to one, so each row of their covariance sums
+            // to zero (common practice: a constant sum has no variance).
+            if i < mat {
+                let row: f64 = (0..mat).map(|j| cov[at(i, j) * px + k] as f64).sum();
+                assert!(
+                    row.abs() <= 1e-4 * v as f64 + 1e-12,
+                    "pixel {k} row {i}: {row}"
+                );
+            }
+        }
+        checked += 1;
+    }
+    assert!(checked > 1000, "{checked}");
+}
