@@ -80,6 +80,9 @@ fn main() {
                 units.entry(truth.labels[(r, c)]).or_default().push((r, c));
             }
         }
+        // Pooled over units and present members: count, within 1σ, within 2σ, Σ n·bias²,
+        // Σ n·spread².
+        let mut pooled = [0.0f64; 5];
         let mut labels: Vec<_> = units.keys().copied().collect();
         labels.sort();
         for label in labels {
@@ -130,6 +133,11 @@ fn main() {
                 let switched = errs.iter().filter(|e| e.2).count() as f64 / n;
                 let within =
                     |k: f64| errs.iter().filter(|e| e.0.abs() < k * e.1).count() as f64 / n;
+                pooled[0] += n;
+                pooled[1] += within(1.0) * n;
+                pooled[2] += within(2.0) * n;
+                pooled[3] += n * bias * bias;
+                pooled[4] += n * spread * spread;
                 println!(
                     "{:<26} {:<24} {:<32} {:>5} {:>7.4} {:>7.4} {:>7.4} {:>6.2} {:>6.2} {:>6.3} {:>6.3} {:>6.3}",
                     name.trim_end_matches(".fits").trim_start_matches("brimveil-"),
@@ -147,5 +155,14 @@ fn main() {
                 );
             }
         }
+        println!(
+            "{:<26} pooled: {} pixel-members, within 1σ {:.3}, within 2σ {:.3}, RMS bias {:.3}, RMS spread {:.3}",
+            name.trim_end_matches(".fits").trim_start_matches("brimveil-"),
+            pooled[0],
+            pooled[1] / pooled[0],
+            pooled[2] / pooled[0],
+            (pooled[3] / pooled[0]).sqrt(),
+            (pooled[4] / pooled[0]).sqrt()
+        );
     }
 }

@@ -168,6 +168,7 @@ fn band(centre_um: f64, fwhm_um: f64, depth: f64) -> Absorption {
 }
 
 const MEYER: &str = "Meyer et al. 1972, Adv. Chem. Ser. 110 (sulfur allotrope absorptions)";
+const MEYER_S3_S4: &str = "Meyer et al. 1972, Adv. Chem. Ser. 110 (S3 absorbs at 400 nm, S4 at 520 nm; used: 0.40 and 0.52 µm)";
 const SILL_GRADIE: &str =
     "Sill & Clark 1982; Gradie & Veverka 1984, Icarus 58 (α-S8 blue edge position, width, levels)";
 const NASH: &str =
@@ -178,36 +179,43 @@ const SO2_IR_MEM: &str =
 const PYROXENE: &str =
     "Adams 1974, JGR 79:4829; Cloutis & Gaffey 1991, JGR 96:22809 (pyroxene Band I / II)";
 const OLIVINE: &str = "Sunshine & Pieters 1998, JGR (olivine composite band)";
-const BASALT: &str = "Am. Mineral. 58:1062 (1973) (dark basalt albedo ≈ 0.07 at 1.1 µm)";
-const FES: &str = "Kargel, Delmelle & Nash 1999, Icarus (iron-sulfide impurity, broad ~1 µm band)";
+const BASALT_BANDS: &str = "Adams 1974, JGR 79:4829 (Fe²⁺ in pyroxene and basaltic glass: a band near 1 µm and a pyroxene band near 2 µm, both shallow in a dark basalt)";
+const BASALT_ALBEDO: &str = "Adams & Filice 1967, JGR 72:5705, Spectral reflectance 0.4 to 2.0 microns of silicate rock powders (dark basalt reflectance ≈ 0.05–0.10, rising gently to the infrared)";
+const S8_COLD: &str = "Sill & Clark 1982 (sulfur pales on cooling: at 100–130 K the edge lies 0.02–0.04 µm shortward and the blue floor rises, a pale yellow)";
 
 /// The starter members' models, in library order.
 pub fn models() -> Vec<Model> {
-    let s8 = |id, name, half_um, temperature_k| Model {
-        id,
-        name,
-        class: Class::SulfurAllotrope,
-        temperature_k: Some(temperature_k),
-        grain_um: Some(100.0),
-        continuum: Continuum::Edge {
-            low: 0.03,
-            high: 0.95,
-            half_um,
-            rise_um: 0.07,
-            slope_per_um: -0.01,
-            ramp_end_um: 0.60,
-            ramp_per_um: 1.2,
-        },
-        bands: vec![band(0.265, 0.02, 0.3), band(0.285, 0.02, 0.3)],
-        sources: vec![
-            (SourceTag::Read, MEYER),
-            (SourceTag::FromMemory, SILL_GRADIE),
-            (
-                SourceTag::FromMemory,
-                "reflectance keeps rising gently through the green to ≈0.6 µm",
-            ),
-        ],
-    };
+    let s8 =
+        |id, name, half_um, low: f64, temperature_k, sources: Vec<(SourceTag, &'static str)>| {
+            Model {
+                id,
+                name,
+                class: Class::SulfurAllotrope,
+                temperature_k: Some(temperature_k),
+                grain_um: Some(100.0),
+                continuum: Continuum::Edge {
+                    low,
+                    high: 0.95,
+                    half_um,
+                    rise_um: 0.07,
+                    slope_per_um: -0.01,
+                    ramp_end_um: 0.60,
+                    ramp_per_um: 1.2,
+                },
+                // No molecular UV bands: below the edge a powder of S8 absorbs so strongly that
+                // its reflectance is the flat floor of the edge (from memory), so the 0.26–0.29 µm
+                // bands of S8 in solution or thin films cannot show.
+                bands: vec![],
+                sources,
+            }
+        };
+    let s8_sources = vec![
+        (SourceTag::FromMemory, SILL_GRADIE),
+        (
+            SourceTag::FromMemory,
+            "reflectance keeps rising gently through the green to ≈0.6 µm",
+        ),
+    ];
     let so2 = |id, name, grain_um, high: f64, deep: bool| Model {
         id,
         name,
@@ -245,8 +253,8 @@ pub fn models() -> Vec<Model> {
             ]
         },
         sources: vec![
-            (SourceTag::Read, NASH),
-            (SourceTag::Read, SO2_IR),
+            (SourceTag::FromMemory, NASH),
+            (SourceTag::FromMemory, SO2_IR),
             (SourceTag::FromMemory, SO2_IR_MEM),
         ],
     };
@@ -255,13 +263,21 @@ pub fn models() -> Vec<Model> {
             "s8-alpha-room",
             "α-S8, orthorhombic cyclo-octasulfur, room temperature (yellow)",
             0.46,
+            0.03,
             295.0,
+            s8_sources.clone(),
         ),
         s8(
             "s8-alpha-cold",
-            "α-S8, orthorhombic cyclo-octasulfur, cold (edge shifted 0.03 µm shortward)",
+            "α-S8, orthorhombic cyclo-octasulfur, cold (pale yellow: edge 0.03 µm shortward, higher blue floor)",
             0.43,
+            0.12,
             120.0,
+            [
+                s8_sources.clone(),
+                vec![(SourceTag::FromMemory, S8_COLD)],
+            ]
+            .concat(),
         ),
         Model {
             id: "sulfur-red-short-chain",
@@ -280,11 +296,11 @@ pub fn models() -> Vec<Model> {
                 ramp_end_um: 0.0,
                 ramp_per_um: 0.0,
             },
-            bands: vec![band(0.41, 0.065, 0.5), band(0.53, 0.10, 0.45)],
+            bands: vec![band(0.40, 0.065, 0.5), band(0.52, 0.10, 0.45)],
             sources: vec![
-                (SourceTag::Read, MEYER),
+                (SourceTag::FromMemory, MEYER_S3_S4),
                 (
-                    SourceTag::Read,
+                    SourceTag::FromMemory,
                     "Spencer et al. 2000, Science 288:1208 (condensed S3/S4 colour red plume deposits)",
                 ),
                 (SourceTag::FromMemory, "band widths; blue-green absorption below 0.6 µm"),
@@ -307,7 +323,7 @@ pub fn models() -> Vec<Model> {
             },
             bands: vec![band(0.36, 0.05, 0.4)],
             sources: vec![
-                (SourceTag::Read, MEYER),
+                (SourceTag::FromMemory, MEYER),
                 (
                     SourceTag::FromMemory,
                     "Moses & Nash 1991, Icarus (quenched orange-brown sulfur edge 0.50–0.60 µm)",
@@ -343,7 +359,7 @@ pub fn models() -> Vec<Model> {
                 band(0.93, 0.22, 0.35),
                 band(1.95, 0.55, 0.30),
             ],
-            sources: vec![(SourceTag::Read, PYROXENE)],
+            sources: vec![(SourceTag::FromMemory, PYROXENE)],
         },
         Model {
             id: "olivine-mafic",
@@ -361,7 +377,7 @@ pub fn models() -> Vec<Model> {
                 band(1.06, 0.20, 0.35),
                 band(1.28, 0.40, 0.30),
             ],
-            sources: vec![(SourceTag::Read, OLIVINE)],
+            sources: vec![(SourceTag::FromMemory, OLIVINE)],
         },
         Model {
             id: "basalt-dark",
@@ -373,8 +389,15 @@ pub fn models() -> Vec<Model> {
                 level: 0.065,
                 slope_per_um: 0.008,
             },
-            bands: vec![band(0.30, 0.25, 0.3), band(1.0, 0.5, 0.1)],
-            sources: vec![(SourceTag::Read, BASALT), (SourceTag::Read, FES)],
+            bands: vec![
+                band(0.30, 0.25, 0.3),
+                band(1.0, 0.30, 0.12),
+                band(2.0, 0.50, 0.08),
+            ],
+            sources: vec![
+                (SourceTag::FromMemory, BASALT_BANDS),
+                (SourceTag::FromMemory, BASALT_ALBEDO),
+            ],
         },
     ]
 }
@@ -384,7 +407,7 @@ pub fn starter_library() -> Library {
     let grid = wavelength_grid();
     Library {
         name: "thiomap starter library (parametric models)".into(),
-        version: "0.1.0".into(),
+        version: "0.2.0".into(),
         origin: "generated".into(),
         members: models().iter().map(|m| m.member(&grid)).collect(),
     }

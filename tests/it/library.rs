@@ -76,9 +76,26 @@ fn so2_frost_sanity_levels() {
 
 #[test]
 fn alpha_s8_sanity_levels() {
+    // Powdered α-S8 shows no molecular UV bands at 0.265 / 0.285 µm: below the edge the
+    // spectrum is a floor that only rises toward the edge (from memory; those bands belong to
+    // S8 in solution or thin films). A band there would show as a dip: a step that falls.
+    let lib = Library::embedded();
+    for id in ["s8-alpha-room", "s8-alpha-cold"] {
+        let m = member(&lib, id);
+        let floor: Vec<f64> = (0..=40)
+            .map(|i| m.at(0.25 + 0.002 * i as f64).unwrap())
+            .collect();
+        for (i, w) in floor.windows(2).enumerate() {
+            assert!(
+                w[1] >= w[0] - 1e-4,
+                "{id}: falls at {:.3} µm",
+                0.25 + 0.002 * i as f64
+            );
+        }
+        assert!(floor[0] < 0.1, "{id}: UV floor {}", floor[0]);
+    }
     // REFERENCES #15 (from memory; Sill & Clark 1982, Gradie & Veverka 1984):
     // room-temperature α-S8 has R(0.40) < 0.2 and R(0.55) > 0.7.
-    let lib = Library::embedded();
     let m = member(&lib, "s8-alpha-room");
     assert!(m.at(0.40).unwrap() < 0.2);
     assert!(m.at(0.55).unwrap() > 0.7);
@@ -113,6 +130,14 @@ fn members_render_in_the_colours_of_their_materials() {
     assert!(
         (0.0..=50.0).contains(&h) && c >= 30.0,
         "red sulfur: {c} {h}"
+    );
+    // Cold α-S8 is paler than at room temperature (Sill & Clark 1982, from memory): less
+    // chroma, no darker, still yellow.
+    let [l_room, c_room, _] = lch(member(&lib, "s8-alpha-room"));
+    let [l_cold, c_cold, h_cold] = lch(member(&lib, "s8-alpha-cold"));
+    assert!(
+        c_cold <= c_room - 10.0 && l_cold >= l_room && (75.0..=105.0).contains(&h_cold),
+        "cold α-S8 {l_cold} {c_cold} {h_cold} against room {l_room} {c_room}"
     );
     let [l, _, h] = lch(member(&lib, "sulfur-polymeric"));
     assert!(

@@ -18,7 +18,7 @@ fn list_shows_every_member_with_its_class() {
     assert!(members
         .iter()
         .any(|m| m["id"] == "so2-frost-coarse" && m["class"] == "so2-frost"));
-    assert_eq!(j["version"], "0.1.0");
+    assert_eq!(j["version"], "0.2.0");
 }
 
 #[test]

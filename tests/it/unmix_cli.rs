@@ -78,7 +78,7 @@ fn the_results_folder_holds_the_contract_files() {
         "brimveil-tile-spectrometer24.fits"
     );
     assert_eq!(record["inputs"][0]["sha256"].as_str().unwrap().len(), 64);
-    assert_eq!(record["library"]["version"], "0.1.0");
+    assert_eq!(record["library"]["version"], "0.2.0");
     assert!(record["recipe"].get("threads").is_none());
 }
 
