@@ -31,6 +31,7 @@ pub mod diagnostics;
 pub mod export;
 pub mod import;
 pub mod resample;
+pub mod solar;
 pub mod starter;
 
 use std::collections::BTreeSet;

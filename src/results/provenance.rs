@@ -83,6 +83,8 @@ pub fn library_record(library: &crate::library::Library) -> serde_json::Value {
         "name": library.name,
         "version": library.version,
         "sha256": library.sha256(),
+        "band_weighting": "band response × solar spectrum",
+        "solar_spectrum": crate::library::solar::Sun::embedded().record(),
     })
 }
 

@@ -13,6 +13,7 @@ mod map_cli;
 mod misfit;
 mod out_folders;
 mod roundtrip;
+mod solar;
 mod support;
 mod units;
 mod unmix;

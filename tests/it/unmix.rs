@@ -467,8 +467,12 @@ fn the_rmse_agrees_however_it_is_computed() {
         for (x, y) in w32.rmse.iter().zip(w64.rmse.iter()) {
             assert_eq!(x.is_nan(), y.is_nan(), "{name}: f32 {x} vs f64 {y}");
             if !x.is_nan() {
+                // f32 solves to a few ulps of the *signal* (≈ 0.5 in I/F), not of the
+                // residual: where the fit is near-perfect (RMSE ≈ 0.003 on the tile) and the
+                // members nearly collinear, a relative bound alone asks more than f32 holds,
+                // so 1e-5 absolute (2·10⁻⁵ of the signal) is allowed beside 0.2 % relative.
                 assert!(
-                    (x - y).abs() <= 2e-3 * y.abs(),
+                    (x - y).abs() <= 2e-3 * y.abs() + 1e-5,
                     "{name}: f32 {x} vs f64 {y}"
                 );
             }
