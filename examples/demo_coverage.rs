@@ -8,16 +8,21 @@
 //! with). Truth is the demo's own synthetic truth; this measures thiomap against itself, not
 //! against an outside reference.
 //!
-//! `cargo run --release --example demo_coverage`
+//! `cargo run --release --example demo_coverage [-- none]`
 
 use std::collections::HashMap;
 use std::path::Path;
 
 use thiomap::cube::{Backplane, OpenOptions};
-use thiomap::unmix::model::Model;
 use thiomap::unmix::{RunOptions, UnmixParams};
 
 fn main() {
+    // `-- none`: equal band weights instead of the default.
+    let how = if std::env::args().any(|a| a == "none") {
+        thiomap::unmix::weights::BandWeighting::None
+    } else {
+        thiomap::unmix::weights::BandWeighting::Auto
+    };
     let root = Path::new(env!("CARGO_MANIFEST_DIR")).join("demo-cubes");
     println!(
         "{:<26} {:<24} {:<32} {:>5} {:>7} {:>7} {:>7} {:>6} {:>6} {:>6} {:>6} {:>6}",
@@ -50,7 +55,16 @@ fn main() {
         let truth = thiomap::demo::files::TruthFiles::read(&path).unwrap();
         let lib = thiomap::library::Library::embedded();
         let r = thiomap::library::resample::resample(&lib, &cube.info.bands).unwrap();
-        let model = Model::build(&r, &UnmixParams::default()).unwrap();
+        // As `map` runs it, band weights included.
+        let (model, weights, _) = thiomap::pipeline::weighted_model(
+            &cube,
+            &r,
+            &UnmixParams::default(),
+            how,
+            &mut Default::default(),
+        )
+        .unwrap();
+        thiomap::pipeline::scale_bands(&mut cube.data, &weights.weights, false);
         let opts = RunOptions {
             report_shade: true,
             ..Default::default()

@@ -117,6 +117,10 @@ pub enum BandError {
 #[derive(Debug, Clone, PartialEq)]
 pub struct BandTable {
     bands: Vec<Band>,
+    /// Each band's noise σ (in the samples' units, at the band's typical signal), when the
+    /// file states it: the `noise_sigma` key of a band table, the `NOISE` column of a FITS
+    /// band table. Unmixing weights bands by 1/σ.
+    noise_sigma: Option<Vec<f64>>,
 }
 
 impl BandTable {
@@ -170,7 +174,35 @@ impl BandTable {
                     .map_err(|why| BandError::BadResponse { band, why })?,
             }
         }
-        Ok(BandTable { bands })
+        Ok(BandTable {
+            bands,
+            noise_sigma: None,
+        })
+    }
+
+    /// The same bands with each band's noise σ; every σ must be positive and finite.
+    pub fn with_noise_sigma(mut self, sigma: Vec<f64>) -> Result<BandTable, String> {
+        if sigma.len() != self.bands.len() {
+            return Err(format!(
+                "{} noise values for {} bands",
+                sigma.len(),
+                self.bands.len()
+            ));
+        }
+        if let Some(i) = sigma.iter().position(|v| !(v.is_finite() && *v > 0.0)) {
+            return Err(format!(
+                "band {}: noise_sigma {} is not a positive finite value",
+                i + 1,
+                sigma[i]
+            ));
+        }
+        self.noise_sigma = Some(sigma);
+        Ok(self)
+    }
+
+    /// Each band's noise σ, when stated.
+    pub fn noise_sigma(&self) -> Option<&[f64]> {
+        self.noise_sigma.as_deref()
     }
 
     pub fn len(&self) -> usize {
@@ -321,6 +353,9 @@ pub struct BandEntry {
     pub fwhm_um: Option<f64>,
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub response: Option<ResponseEntry>,
+    /// The band's noise σ in the samples' units (all bands or none).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub noise_sigma: Option<f64>,
     /// Band stacks only: the image file, relative to the sidecar.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub file: Option<String>,
@@ -342,6 +377,10 @@ pub struct About {
     pub time: Option<String>,
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub instrument: Option<String>,
+    /// Distance from the Sun at the observation, AU (FITS `SUNDIST`): scales the thermal
+    /// emission a hot surface adds to I/F.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub sun_distance_au: Option<f64>,
     /// Anything else, kept as given.
     #[serde(default, skip_serializing_if = "BTreeMap::is_empty")]
     pub extra: BTreeMap<String, String>,
@@ -352,6 +391,7 @@ impl About {
         self.target.is_none()
             && self.time.is_none()
             && self.instrument.is_none()
+            && self.sun_distance_au.is_none()
             && self.extra.is_empty()
     }
 }
@@ -414,7 +454,16 @@ impl BandTableFile {
                 response,
             });
         }
-        BandTable::new(bands).map_err(|e| e.to_string())
+        let table = BandTable::new(bands).map_err(|e| e.to_string())?;
+        let noise: Vec<f64> = self.bands.iter().filter_map(|e| e.noise_sigma).collect();
+        match noise.len() {
+            0 => Ok(table),
+            n if n == self.bands.len() => table.with_noise_sigma(noise),
+            n => Err(format!(
+                "{n} of {} bands give `noise_sigma`: give it for every band or for none",
+                self.bands.len()
+            )),
+        }
     }
 
     /// The file entries for a band table (for writing sidecars and band sets).
@@ -422,7 +471,8 @@ impl BandTableFile {
         table
             .bands()
             .iter()
-            .map(|b| {
+            .enumerate()
+            .map(|(i, b)| {
                 let (fwhm_um, response) = match &b.response {
                     Response::Point => (None, None),
                     Response::Gaussian { fwhm_um } => (Some(*fwhm_um), None),
@@ -441,6 +491,7 @@ impl BandTableFile {
                     centre_um: b.centre_um,
                     fwhm_um,
                     response,
+                    noise_sigma: table.noise_sigma().map(|s| s[i]),
                     file: None,
                     scale: None,
                     offset: None,

@@ -35,6 +35,7 @@ pub mod pipeline;
 pub mod recipe;
 pub mod render;
 pub mod results;
+pub mod thermal;
 pub mod units;
 pub mod unmix;
 

@@ -12,6 +12,7 @@ use crate::library::resample::resample;
 use crate::recipe::CheckedRecipe;
 use crate::results::{self, CubeResult, Timings};
 use crate::units::{self, UnitMap};
+use crate::unmix::weights::{self, BandWeighting, BandWeights, WeightSource};
 use crate::unmix::{self, Model, Precision, UnmixOutput};
 
 /// Receives progress from the pipeline; the command line draws it.
@@ -29,7 +30,10 @@ pub trait Progress: Sync {
 /// A cube and the model, ready to unmix.
 pub struct Prepared {
     pub cube: Cube,
+    /// The model of the weighted problem (its endmember rows scaled by the band weights).
     pub model: Model,
+    /// The band weights the cube is scaled by while it is unmixed.
+    pub weights: BandWeights,
     pub warnings: Vec<String>,
 }
 
@@ -50,7 +54,15 @@ pub fn prepare(
     cube.select_bands(&kept);
     let mut warnings = Vec::new();
     let law = recipe.photometry();
-    if cube.info.quantity != Quantity::ReflectanceFactor && law.is_none() {
+    // I/F and the radiance factor differ from the reflectance factor by a brightness per
+    // pixel (cos i, topography), which the shade member absorbs; without shade it needs
+    // the photometric law.
+    let shade_absorbs = recipe.unmix_params().shade
+        && matches!(
+            cube.info.quantity,
+            Quantity::IOverF | Quantity::RadianceFactor
+        );
+    if cube.info.quantity != Quantity::ReflectanceFactor && law.is_none() && !shade_absorbs {
         warnings.push(format!(
             "{}: the cube declares its quantity as {}; unmixing assumes reflectance factor \
              (--photometry lambert divides I/F by cos i)",
@@ -73,8 +85,10 @@ pub fn prepare(
     let params = recipe.unmix_params();
     let resampled = resample(recipe.library(), &cube.info.bands)
         .with_context(|| format!("{}: resampling the library to its bands", path.display()))?;
-    let model = Model::build(&resampled, params)
-        .with_context(|| format!("{}: building the endmember model", path.display()))?;
+    let (model, weights, warning) =
+        weighted_model(&cube, &resampled, params, recipe.band_weighting(), timings)
+            .with_context(|| format!("{}: building the endmember model", path.display()))?;
+    warnings.extend(warning);
     if let Some(k) = model.subset_size {
         if params.subsets == unmix::Subsets::Auto {
             warnings.push(format!(
@@ -95,6 +109,7 @@ pub fn prepare(
     Ok(Prepared {
         cube,
         model,
+        weights,
         warnings,
     })
 }
@@ -113,16 +128,95 @@ pub fn normalise(
     )
 }
 
-/// Runs the unmixing stage with progress.
-pub fn run_unmix(p: &Prepared, recipe: &CheckedRecipe, progress: &dyn Progress) -> UnmixOutput {
+/// The band weights of a cube ([`weights`]) and the model of the weighted problem: the
+/// endmember matrix's rows scaled by them. Also a warning when `auto` had nothing to
+/// estimate from.
+pub fn weighted_model(
+    cube: &Cube,
+    resampled: &crate::library::resample::Resampled,
+    params: &unmix::UnmixParams,
+    how: BandWeighting,
+    timings: &mut Timings,
+) -> anyhow::Result<(Model, BandWeights, Option<String>)> {
+    let mut warning = None;
+    let weights = match (how, cube.info.bands.noise_sigma()) {
+        (BandWeighting::None, _) => BandWeights::uniform(cube.info.bands.len()),
+        (BandWeighting::Auto, Some(sigma)) => {
+            BandWeights::from_sigma(sigma, WeightSource::BandTable)
+        }
+        (BandWeighting::Auto, None)
+            if !weights::can_estimate(
+                Model::build(resampled, params)?.columns(),
+                cube.info.bands.len(),
+            ) =>
+        {
+            let mut w = BandWeights::uniform(cube.info.bands.len());
+            w.note = Some(format!(
+                "the band table states no noise_sigma and {} bands are too few to estimate \
+                 each band's noise from the residuals (at least four per unknown): every band \
+                 weighs 1",
+                cube.info.bands.len()
+            ));
+            w
+        }
+        (BandWeighting::Auto, None) => {
+            let estimate = timings.time("band weights", || {
+                weights::estimate_sigma(cube.data.view(), cube.valid.view(), resampled, params)
+            })?;
+            match estimate {
+                Some(sigma) => BandWeights::from_sigma(&sigma, WeightSource::Residuals),
+                None => {
+                    warning = Some(
+                        "band weights: too few pixels fit to estimate each band's noise; \
+                         every band weighs 1"
+                            .to_string(),
+                    );
+                    BandWeights::uniform(cube.info.bands.len())
+                }
+            }
+        }
+    };
+    let mut weighted = resampled.clone();
+    for (mut row, w) in weighted.matrix.rows_mut().into_iter().zip(&weights.weights) {
+        row *= *w;
+    }
+    Ok((Model::build(&weighted, params)?, weights, warning))
+}
+
+/// Multiplies (or, `invert`, divides) each band of `data` (rows × cols × bands) by its
+/// weight.
+pub fn scale_bands(data: &mut ndarray::Array3<f32>, weights: &[f64], invert: bool) {
+    for (b, &w) in weights.iter().enumerate() {
+        let f = if invert { 1.0 / w } else { w } as f32;
+        data.index_axis_mut(ndarray::Axis(2), b)
+            .mapv_inplace(|v| v * f);
+    }
+}
+
+/// Runs the unmixing stage with progress. The cube's bands are scaled by the band weights
+/// for the solver and scaled back afterwards (to within an f32 rounding); the residuals
+/// are reported unweighted, in the cube's units.
+pub fn run_unmix(p: &mut Prepared, recipe: &CheckedRecipe, progress: &dyn Progress) -> UnmixOutput {
     let opts = recipe.run_options();
     progress.stage("unmix", Some(p.cube.info.rows));
     let report = |done: usize| progress.rows(done);
+    let scale = scale_bands;
+    let weighted = !p.weights.is_uniform();
+    if weighted {
+        scale(&mut p.cube.data, &p.weights.weights, false);
+    }
     let (data, valid) = (p.cube.data.view(), p.cube.valid.view());
-    match recipe.precision() {
+    let mut out = match recipe.precision() {
         Precision::F64 => unmix::unmix::<f64>(data, valid, &p.model, opts, &report),
         Precision::F32 => unmix::unmix::<f32>(data, valid, &p.model, opts, &report),
+    };
+    if weighted {
+        scale(&mut p.cube.data, &p.weights.weights, true);
+        if let Some(r) = out.residual.as_mut() {
+            scale(r, &p.weights.weights, true);
+        }
     }
+    out
 }
 
 /// Groups the unmixed pixels into units (the `map` stage after unmixing).
@@ -232,12 +326,12 @@ pub fn run_cube(
     progress: &dyn Progress,
 ) -> Result<Outcome, StageError> {
     let mut timings = Timings::default();
-    let prepared = at("read", prepare(cube, hdu, recipe, &mut timings))?;
+    let mut prepared = at("read", prepare(cube, hdu, recipe, &mut timings))?;
     at("write", results::prepare(to.dir, to.overwrite))?;
     for w in &prepared.warnings {
         progress.warn(w);
     }
-    let unmixed = timings.time("unmix", || run_unmix(&prepared, recipe, progress));
+    let unmixed = timings.time("unmix", || run_unmix(&mut prepared, recipe, progress));
     let map = match job {
         Job::Unmix => None,
         Job::Map => Some(at(
@@ -250,6 +344,7 @@ pub fn run_cube(
         cube: &prepared.cube,
         library: recipe.library(),
         model: &prepared.model,
+        weights: &prepared.weights,
         unmixed: &unmixed,
         units: map.as_ref(),
         recipe: recipe.recipe(),

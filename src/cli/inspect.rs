@@ -58,6 +58,8 @@ struct BandReport {
     centre_um: f64,
     fwhm_um: Option<f64>,
     response: &'static str,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    noise_sigma: Option<f64>,
     min: Option<f32>,
     median: Option<f32>,
     max: Option<f32>,
@@ -98,6 +100,7 @@ pub fn run(args: Args) -> anyhow::Result<ExitCode> {
                     Response::Gaussian { .. } => "gaussian",
                     Response::Tabulated { .. } => "tabulated",
                 },
+                noise_sigma: info.bands.noise_sigma().map(|n| n[i]),
                 min: s.map(|s| s.min),
                 median: s.map(|s| s.median),
                 max: s.map(|s| s.max),
@@ -151,6 +154,9 @@ fn format_text(r: &Report) -> String {
         if let Some(v) = value {
             let _ = writeln!(s, "{label:<11} {v}");
         }
+    }
+    if let Some(d) = r.about.sun_distance_au {
+        let _ = writeln!(s, "sun         {d} AU");
     }
     let _ = writeln!(s);
     let _ = writeln!(

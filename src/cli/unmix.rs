@@ -87,6 +87,11 @@ pub struct UnmixArgs {
     /// Default none.
     #[arg(long, value_name = "LAW", value_parser = ["none", "lambert", "lommel-seeliger"])]
     pub photometry: Option<String>,
+    /// Weight each band by 1/σ, its noise: auto (default) takes σ from the cube's band
+    /// table (`noise_sigma`) or, when it has none, estimates it from the residuals of an
+    /// unweighted fit of a sample of pixels; none weighs every band alike.
+    #[arg(long, value_name = "HOW", value_parser = ["auto", "none"])]
+    pub band_weights: Option<String>,
     #[command(flatten)]
     pub select: BandArgs,
     /// FITS only: the HDU that holds the cube, by EXTNAME or index.
@@ -177,6 +182,16 @@ impl UnmixArgs {
             "--photometry",
             self.photometry.as_deref().map(Law::parse),
             |r, v| r.photometry = v,
+        );
+        d.flag(
+            "band_weights",
+            "--band-weights",
+            self.band_weights
+                .as_deref()
+                .map(thiomap::unmix::weights::BandWeighting::parse)
+                .transpose()
+                .map_err(|e| anyhow::anyhow!("--band-weights {e}"))?,
+            |r, v| r.band_weights = v,
         );
         d.flag("range_um", "--range", self.select.range(), |r, (a, b)| {
             r.range_um = Some([a, b])

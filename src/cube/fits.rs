@@ -9,7 +9,9 @@
 //! or a `BANDFWHM` keyword (in `CUNIT3` units) when every band has the same width.
 //! Spectral units: m (the WCS default), um, nm, Angstrom.
 //!
-//! Our own keywords: `QUANTITY` (what the samples are, see [`Quantity`]) and `BANDFWHM`.
+//! Our own keywords: `QUANTITY` (what the samples are, see [`Quantity`]), `BANDFWHM` and
+//! `SUNDIST` (the Sun's distance at the observation, AU); our own band-table column:
+//! `NOISE` (each band's noise σ in the samples' units).
 //! Description comes from the standard `OBJECT`, `DATE-OBS` and `INSTRUME`.
 
 use std::path::Path;
@@ -81,6 +83,18 @@ impl FitsCube {
             target: h.str("OBJECT").map(str::to_string),
             time: h.str("DATE-OBS").map(str::to_string),
             instrument: h.str("INSTRUME").map(str::to_string),
+            sun_distance_au: match h.f64("SUNDIST") {
+                Some(d) if d.is_finite() && d > 0.0 => Some(d),
+                Some(d) => {
+                    return Err(CubeError::malformed(
+                        path,
+                        format!(
+                            "SUNDIST = {d}: the Sun's distance must be a positive number of AU"
+                        ),
+                    ))
+                }
+                None => None,
+            },
             extra: Default::default(),
         };
         let info = CubeInfo {
@@ -206,6 +220,7 @@ fn spectral_axis(
         None => h.f64("CDELT3").unwrap_or(1.0) * h.f64("PC3_3").unwrap_or(1.0),
     };
     let psi = |p: usize| crval + cdelt * (p as f64 - crpix);
+    let mut noise: Option<Vec<f64>> = None;
     let (centres, widths): (Vec<f64>, Option<Vec<f64>>) = match ctype {
         "WAVE" => {
             let centres = (1..=n).map(|p| psi(p) * scale).collect();
@@ -266,6 +281,15 @@ fn spectral_axis(
                 }
                 Err(_) => None,
             };
+            if let Ok(col) = fits::read_table_column(src, table, "NOISE") {
+                if col.values.len() != n {
+                    return Err(bad(format!(
+                        "WAVE-TAB: the NOISE column has {} values for {n} bands",
+                        col.values.len()
+                    )));
+                }
+                noise = Some(col.values);
+            }
             (centres, widths)
         }
         other => {
@@ -285,10 +309,16 @@ fn spectral_axis(
             },
         })
         .collect();
-    BandTable::new(bands).map_err(|source| CubeError::Bands {
+    let table = BandTable::new(bands).map_err(|source| CubeError::Bands {
         path: path.to_path_buf(),
         error: source,
-    })
+    })?;
+    match noise {
+        Some(sigma) => table
+            .with_noise_sigma(sigma)
+            .map_err(|e| bad(format!("WAVE-TAB NOISE column: {e}"))),
+        None => Ok(table),
+    }
 }
 
 /// Linear interpolation in a 1-based table at fractional position `x`.
@@ -431,6 +461,8 @@ pub fn write_cube(path: &Path, cube: &Cube) -> Result<(), crate::atomic::WriteEr
     let bands = &info.bands;
     let mut extensions = Vec::new();
     let linear = match (bands.regular_step_um(), bands.uniform_fwhm_um()) {
+        // Per-band noise needs the table.
+        _ if bands.noise_sigma().is_some() => None,
         (Some(step), Some(w)) => Some((step, Some(w))),
         (Some(step), None) if bands.bands().iter().all(|b| b.response == Response::Point) => {
             Some((step, None))
@@ -480,6 +512,13 @@ pub fn write_cube(path: &Path, cube: &Cube) -> Result<(), crate::atomic::WriteEr
                     values: bands.bands().iter().filter_map(|b| b.fwhm_um()).collect(),
                 });
             }
+            if let Some(sigma) = bands.noise_sigma() {
+                columns.push(TableColumn {
+                    name: "NOISE".into(),
+                    unit: "".into(),
+                    values: sigma.to_vec(),
+                });
+            }
             extensions.push(Extension::Table(TableHdu {
                 extname: "WCS-TAB".into(),
                 columns,
@@ -501,6 +540,13 @@ pub fn write_cube(path: &Path, cube: &Cube) -> Result<(), crate::atomic::WriteEr
         if let Some(v) = value {
             cards.push(Card::new(key, text(v), ""));
         }
+    }
+    if let Some(d) = info.about.sun_distance_au {
+        cards.push(Card::new(
+            "SUNDIST",
+            Value::Real(d),
+            "distance from the Sun, AU",
+        ));
     }
     cards.extend(info.spatial_wcs.iter().cloned());
     for (plane, values) in &cube.backplanes {

@@ -99,8 +99,14 @@ impl BandSelection {
 impl BandTable {
     /// The bands at `indices` (which must be valid and increasing).
     pub fn subset(&self, indices: &[usize]) -> BandTable {
-        BandTable::new(indices.iter().map(|&i| self.bands()[i].clone()).collect())
-            .expect("a subset of a valid table in order is valid")
+        let table = BandTable::new(indices.iter().map(|&i| self.bands()[i].clone()).collect())
+            .expect("a subset of a valid table in order is valid");
+        match self.noise_sigma() {
+            Some(s) => table
+                .with_noise_sigma(indices.iter().map(|&i| s[i]).collect())
+                .expect("a subset of valid noise values is valid"),
+            None => table,
+        }
     }
 }
 

@@ -66,8 +66,17 @@ struct NoiseOut {
     band: usize,
     centre_um: f64,
     mean_signal: f64,
+    sigma_at_mean: f64,
     read_sigma: f64,
     signal_coeff: f64,
+}
+
+#[derive(Serialize)]
+struct HotSpotOut {
+    row: usize,
+    col: usize,
+    temperature_k: f64,
+    fraction: f64,
 }
 
 #[derive(Serialize)]
@@ -80,6 +89,7 @@ struct TruthJson<'a> {
     units: Vec<UnitOut>,
     features: Vec<&'static str>,
     hot_spot_pixels: Vec<[usize; 2]>,
+    hot_spots: Vec<HotSpotOut>,
     parameters: serde_json::Value,
     noise: Vec<NoiseOut>,
     files: serde_json::Value,
@@ -136,6 +146,16 @@ pub fn write_scene(
             .collect(),
         features: world::FEATURES.iter().map(|f| f.name).collect(),
         hot_spot_pixels: hot,
+        hot_spots: t
+            .hot_spots
+            .iter()
+            .map(|h| HotSpotOut {
+                row: h.row,
+                col: h.col,
+                temperature_k: h.temperature_k,
+                fraction: h.fraction,
+            })
+            .collect(),
         parameters: serde_json::json!({
             "kind": match params.kind { SceneKind::Globe => "globe", SceneKind::Tile => "tile" },
             "rows": params.rows,
@@ -146,14 +166,16 @@ pub fn write_scene(
             "noise_split": "half of the variance at each band's mean surface signal from read noise, half signal-proportional",
             "mismatch": params.mismatch,
             "hot_spots": params.hot_spots,
-            "hot_spot_temperature_k": super::HOT_SPOT_K,
-            "hot_spot_amplitude_at_4um": super::HOT_SPOT_AMPLITUDE,
+            "hot_spot_temperature_range_k": [super::HOT_SPOT_K.0, super::HOT_SPOT_K.1],
+            "hot_spot_fraction_range": [super::HOT_SPOT_FRACTION.0, super::HOT_SPOT_FRACTION.1],
+            "hot_spot_emissivity": 1.0,
+            "sun_distance_au": super::SUN_DISTANCE_AU,
             "seed": params.seed,
             "photometric_law": params.law.name(),
             "topographic_shading_depth": super::SHADING_DEPTH,
             "sub_solar_point_deg": [params.sun.0, params.sun.1],
             "sub_observer_point_deg": [params.observer.0, params.observer.1],
-            "quantity": "reflectance-factor",
+            "quantity": "i-over-f",
         }),
         noise: t
             .noise
@@ -163,6 +185,7 @@ pub fn write_scene(
                 band: b + 1,
                 centre_um: scene.cube.info.bands.bands()[b].centre_um,
                 mean_signal: n.mean_signal,
+                sigma_at_mean: n.sigma(n.mean_signal),
                 read_sigma: n.read_sigma,
                 signal_coeff: n.signal_coeff,
             })

@@ -8,21 +8,23 @@
 //! - **Geometry**: orthographic view from the sub-observer point; per pixel incidence i,
 //!   emission e, phase g, latitude, longitude (degrees). A tile is equirectangular
 //!   (latitude 40° S–40° N, longitude 50° W–50° E) with the same angles.
-//! - **Photometry**: the samples are reflectance factor of the mixture times a photometric
-//!   factor P and a topographic shading t: Lambert P = cos i (the default), or
+//! - **Photometry**: the samples are I/F: reflectance factor of the mixture times a
+//!   photometric factor P and a topographic shading t: Lambert P = cos i (the default), or
 //!   Lommel–Seeliger P = 2 cos i / (cos i + cos e), both 1 at normal geometry; t is a
 //!   smooth seeded field between 0.85 and 1 (5° cells). P·t is the brightness a shade
 //!   member absorbs. (Lommel–Seeliger exceeds 1 where i < e: a shade cannot brighten, so
-//!   such pixels need photometric normalisation first.)
+//!   such pixels need photometric normalisation first.) Library spectra enter through the
+//!   solar-weighted band responses ([`crate::library::resample`]).
 //! - **Noise**: per band, SNR = mean surface signal S̄ in that band / σ at S̄, with
 //!   variance σ²(s) = σ_r² + k·s split equally at S̄: σ_r² = k·S̄ = ½ (S̄/SNR)².
 //!   The mean is over sunlit surface pixels.
 //! - **Library mismatch** (optional, ±m): each member's spectrum is multiplied by
 //!   1 + m·sin(2π λ / Λ + φ) with Λ in 1.5–4 µm and φ seeded per member before resampling;
 //!   the truth stays over the library's own members.
-//! - **Hot spots** (optional): pixels on the active vent's floor gain a thermal term
-//!   A·B_λ(650 K)/B_4µm(650 K) with A = 1 (Planck's law), unexplained by any reflectance
-//!   member.
+//! - **Hot spots** (optional): pixels on the active vent's floor gain thermal emission in
+//!   I/F units, f π ε d² ∫S B_λ(T) / ∫S F☉ ([`crate::thermal`]), ε = 1, with T drawn in
+//!   550–850 K and the hot area fraction f log-uniform in 10⁻⁴–10⁻³, at the Sun's distance
+//!   [`SUN_DISTANCE_AU`] (recorded as `SUNDIST`); the truth lists each spot's T and f.
 //!
 //! Randomness comes from one ChaCha8 stream seeded by `seed`, drawn in a fixed order, so
 //! reruns with the same seed are byte-identical.
@@ -176,6 +178,8 @@ pub struct Truth {
     /// Pixels ≥ 2 pixels from any unit boundary, outside transition zones, not hot.
     pub core: Array2<bool>,
     pub hot: Array2<bool>,
+    /// Each hot pixel's temperature and fraction.
+    pub hot_spots: Vec<HotSpot>,
     pub noise: Vec<BandNoise>,
     /// Groups `library check` reports for this band set (default angle).
     pub groups: Vec<Group>,
@@ -195,15 +199,22 @@ fn normal(rng: &mut ChaCha8Rng) -> f64 {
     (-2.0 * u1.ln()).sqrt() * (std::f64::consts::TAU * u2).cos()
 }
 
-/// Planck's law B_λ(T) up to a constant: λ⁻⁵ / (exp(c₂/λT) − 1), λ in µm.
-pub fn planck_shape(wl_um: f64, t_k: f64) -> f64 {
-    const C2_UM_K: f64 = 14_387.768_775; // second radiation constant hc/k, µm·K (CODATA 2018)
-    wl_um.powi(-5) / ((C2_UM_K / (wl_um * t_k)).exp() - 1.0)
-}
+/// Brimveil's distance from its sun, AU (a fictional world's value).
+pub const SUN_DISTANCE_AU: f64 = 4.8;
+/// Hot-spot temperatures, K, drawn uniformly in this range.
+pub const HOT_SPOT_K: (f64, f64) = (550.0, 850.0);
+/// Hot area fractions, drawn log-uniformly in this range.
+pub const HOT_SPOT_FRACTION: (f64, f64) = (1e-4, 1e-3);
 
-/// Hot-spot temperature, K, and amplitude at 4 µm (reflectance-factor units).
-pub const HOT_SPOT_K: f64 = 650.0;
-pub const HOT_SPOT_AMPLITUDE: f64 = 1.0;
+/// One hot spot of the truth.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct HotSpot {
+    pub row: usize,
+    pub col: usize,
+    pub temperature_k: f64,
+    /// The pixel fraction at that temperature.
+    pub fraction: f64,
+}
 
 struct Pixel {
     lat: f64,
@@ -374,6 +385,7 @@ pub fn generate(
 
     // Hot spots on the active vent's sunlit floor.
     let mut hot = Array2::<bool>::from_elem((rows, cols), false);
+    let mut hot_spots = Vec::new();
     if p.hot_spots > 0 {
         let vent = world::unit_vector(world::ACTIVE_VENT.0, world::ACTIVE_VENT.1);
         let mut candidates: Vec<(f64, usize, usize)> = Vec::new();
@@ -390,15 +402,35 @@ pub fn generate(
         if candidates.len() < p.hot_spots {
             return Err(DemoError::NoVentInView);
         }
+        let sun = crate::library::solar::Sun::embedded();
         for _ in 0..p.hot_spots {
             let k = rng.gen_range(0..candidates.len());
             let (_, r, c) = candidates.swap_remove(k);
             hot[(r, c)] = true;
-            let norm = planck_shape(4.0, HOT_SPOT_K);
+            let t_k = HOT_SPOT_K.0 + (HOT_SPOT_K.1 - HOT_SPOT_K.0) * rng.gen::<f64>();
+            let (lo, hi) = (HOT_SPOT_FRACTION.0.ln(), HOT_SPOT_FRACTION.1.ln());
+            let fraction = (lo + (hi - lo) * rng.gen::<f64>()).exp();
             for (b, band) in bands.bands().iter().enumerate() {
-                signal[(r, c, b)] +=
-                    HOT_SPOT_AMPLITUDE * planck_shape(band.centre_um, HOT_SPOT_K) / norm;
+                let unit = crate::thermal::band_iof(band, t_k, SUN_DISTANCE_AU, 1.0, sun)
+                    .ok_or_else(|| {
+                        DemoError::Coverage(OutOfCoverage {
+                            band: b + 1,
+                            centre_um: band.centre_um,
+                            lo_um: crate::library::resample::support_um(band).0,
+                            hi_um: crate::library::resample::support_um(band).1,
+                            member: format!("the solar spectrum {}", sun.id),
+                            cov_lo_um: sun.coverage_um().0,
+                            cov_hi_um: sun.coverage_um().1,
+                        })
+                    })?;
+                signal[(r, c, b)] += fraction * unit;
             }
+            hot_spots.push(HotSpot {
+                row: r,
+                col: c,
+                temperature_k: t_k,
+                fraction,
+            });
         }
     }
 
@@ -443,13 +475,14 @@ pub fn generate(
             rows,
             cols,
             bands: bands.clone(),
-            quantity: Quantity::ReflectanceFactor,
+            quantity: Quantity::IOverF,
             spatial_wcs: Vec::new(),
             inputs: Vec::new(),
             about: About {
                 target: Some("Brimveil (fictional; synthetic scene)".into()),
                 time: None,
                 instrument: Some(instrument.to_string()),
+                sun_distance_au: Some(SUN_DISTANCE_AU),
                 extra: Default::default(),
             },
         },
@@ -466,6 +499,7 @@ pub fn generate(
             labels,
             core,
             hot,
+            hot_spots,
             noise,
             groups,
         },
@@ -521,17 +555,6 @@ mod tests {
             "{sd} vs {}",
             model.sigma(s)
         );
-    }
-
-    #[test]
-    fn planck_peak_follows_wien() {
-        // Wien's displacement law: λ_max T = 2897.77 µm·K (CODATA 2018).
-        let t = 650.0;
-        let peak = (1..2000)
-            .map(|i| 1.0 + 0.005 * i as f64)
-            .max_by(|a, b| planck_shape(*a, t).total_cmp(&planck_shape(*b, t)))
-            .unwrap();
-        assert!((peak * t - 2897.77).abs() < 5.0, "{peak}");
     }
 
     #[test]

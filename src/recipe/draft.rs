@@ -279,6 +279,11 @@ impl CheckedRecipe {
         self.recipe.photometry
     }
 
+    /// How bands are weighted.
+    pub fn band_weighting(&self) -> crate::unmix::weights::BandWeighting {
+        self.recipe.band_weights
+    }
+
     pub fn selection(&self) -> &BandSelection {
         &self.selection
     }

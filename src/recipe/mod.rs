@@ -19,6 +19,7 @@
 //! unexplained_p = 0.001     # false-alarm probability of the unexplained test
 //! precision = "f32"         # f32 (fast) or f64 (reference)
 //! photometry = "none"       # none, lambert or lommel-seeliger (needs the backplanes)
+//! band_weights = "auto"     # 1/σ per band (band table, else estimated) or "none"
 //! # map only:
 //! units = "auto"            # or K
 //! max_units = 10
@@ -84,6 +85,8 @@ pub struct Recipe {
     /// The photometric law the cube is divided by before unmixing ("none" for none).
     #[serde(with = "law_word")]
     pub photometry: Option<Law>,
+    /// Bands weighted by 1/σ ("auto") or all alike ("none").
+    pub band_weights: crate::unmix::weights::BandWeighting,
     /// `map` only: the number of units, or "auto".
     pub units: UnitCount,
     /// `map` only: the largest K tried by "auto".
@@ -306,6 +309,7 @@ impl Default for Recipe {
             unexplained_p: crate::unmix::misfit::DEFAULT_FALSE_ALARM,
             precision: Precision::F32,
             photometry: None,
+            band_weights: crate::unmix::weights::BandWeighting::Auto,
             units: UnitCount::Auto,
             max_units: u.max_units,
             sample: SampleSize::N(crate::units::DEFAULT_SAMPLE),

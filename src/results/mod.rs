@@ -36,6 +36,8 @@ pub struct CubeResult<'a> {
     pub cube: &'a Cube,
     pub library: &'a Library,
     pub model: &'a Model,
+    /// The band weights the model and the cube were scaled by.
+    pub weights: &'a crate::unmix::weights::BandWeights,
     pub unmixed: &'a UnmixOutput,
     /// The surface units (`map` only).
     pub units: Option<&'a UnitMap>,

@@ -41,6 +41,8 @@ pub struct UnmixSummary<'a> {
     /// Pixels whose solution sits on a constraint boundary the noise could move (bit 1 of
     /// fit-flags.fits).
     pub boundary_pixels: usize,
+    /// Each band's weight 1/σ (median 1) and where σ came from.
+    pub band_weights: &'a unmix::weights::BandWeights,
     pub warnings: &'a [String],
 }
 
@@ -87,6 +89,7 @@ pub fn unmix_summary<'a>(r: &CubeResult<'a>) -> UnmixSummary<'a> {
         enumerated_pixels: c.enumerated,
         unexplained_test: &out.misfit.summary,
         boundary_pixels: out.boundary.iter().filter(|b| **b).count(),
+        band_weights: r.weights,
         warnings: r.warnings,
     }
 }

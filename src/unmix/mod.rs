@@ -34,6 +34,7 @@ mod plan;
 pub mod run;
 pub mod solve;
 mod subsets;
+pub mod weights;
 
 pub use model::{Model, ModelError};
 pub use output::{Counts, RunOptions, StdErrors, UnmixOutput, DARK_LIMIT};

@@ -216,7 +216,11 @@ fn every_scene_kind_and_format_reads_back_with_inspect() {
         let run = thiomap(&["inspect", out.to_str().unwrap(), "--json"]);
         assert!(run.status.success(), "{name}: {}", stderr(&run));
         let j: serde_json::Value = serde_json::from_slice(&run.stdout).unwrap();
-        assert_eq!(j["quantity"], "reflectance-factor", "{name}");
+        assert_eq!(j["quantity"], "i-over-f", "{name}: the demo writes I/F");
+        assert_eq!(
+            j["about"]["sun_distance_au"], 4.8,
+            "{name}: SUNDIST / sun_distance_au"
+        );
         if name.starts_with("tile") {
             assert_eq!(j["nodata_pixels"], 0, "{name}: a tile has no limb");
         } else {

@@ -18,3 +18,4 @@ mod support;
 mod units;
 mod unmix;
 mod unmix_cli;
+mod weights;

@@ -58,6 +58,58 @@ fn fits_with_irregular_bands_is_written_as_wave_tab() {
 }
 
 #[test]
+fn band_noise_and_the_suns_distance_survive_fits_and_npy() {
+    // Our own keys: the band table's NOISE column / `noise_sigma`, and SUNDIST /
+    // `[about] sun_distance_au`. A linear axis is written as a table when noise is stated.
+    let dir = tempfile::tempdir().unwrap();
+    let mut original = load(&fixture("external/astropy-f32.fits"));
+    let n = original.info.bands.len();
+    let sigma: Vec<f64> = (0..n).map(|i| 0.001 * (i + 1) as f64).collect();
+    original.info.bands = original
+        .info
+        .bands
+        .clone()
+        .with_noise_sigma(sigma.clone())
+        .unwrap();
+    original.info.about.sun_distance_au = Some(4.95);
+    for name in ["copy.fits", "copy.npy"] {
+        let out = dir.path().join(name);
+        if name.ends_with(".fits") {
+            cube::fits::write_cube(&out, &original).unwrap();
+            assert_eq!(primary_ctype3(&out), "WAVE-TAB");
+        } else {
+            cube::npy::write_cube(&out, &original).unwrap();
+        }
+        let copy = load(&out);
+        same_samples(&original, &copy);
+        assert_eq!(copy.info.bands.noise_sigma(), Some(&sigma[..]), "{name}");
+        assert_eq!(copy.info.about.sun_distance_au, Some(4.95), "{name}");
+        assert_eq!(
+            original.info.bands.centres_um(),
+            copy.info.bands.centres_um()
+        );
+    }
+}
+
+#[test]
+fn a_sidecar_with_noise_on_some_bands_only_is_refused() {
+    let table = thiomap::bands::BandTableFile::parse(
+        "kind = \"band-set\"\n[[band]]\ncentre_um = 0.5\nnoise_sigma = 0.01\n\
+         [[band]]\ncentre_um = 0.6\n",
+    )
+    .unwrap();
+    let e = table.band_table().unwrap_err();
+    assert!(e.contains("every band or for none"), "{e}");
+    let table = thiomap::bands::BandTableFile::parse(
+        "kind = \"band-set\"\n[[band]]\ncentre_um = 0.5\nnoise_sigma = -1\n\
+         [[band]]\ncentre_um = 0.6\nnoise_sigma = 0.01\n",
+    )
+    .unwrap();
+    let e = table.band_table().unwrap_err();
+    assert!(e.contains("band 1: noise_sigma -1"), "{e}");
+}
+
+#[test]
 fn npy_with_sidecar_reads_back_unchanged() {
     let dir = tempfile::tempdir().unwrap();
     let original = load(&fixture("external/astropy-wavetab.fits"));

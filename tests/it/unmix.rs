@@ -252,7 +252,16 @@ fn demo_rmse(
     let truth = thiomap::demo::files::TruthFiles::read(&path).unwrap();
     let lib = thiomap::library::Library::embedded();
     let r = thiomap::library::resample::resample(&lib, &cube.info.bands).unwrap();
-    let model = Model::build(&r, params).unwrap();
+    // As `unmix` runs it, band weights included.
+    let (model, weights, _) = thiomap::pipeline::weighted_model(
+        &cube,
+        &r,
+        params,
+        thiomap::unmix::weights::BandWeighting::Auto,
+        &mut Default::default(),
+    )
+    .unwrap();
+    thiomap::pipeline::scale_bands(&mut cube.data, &weights.weights, false);
     let opts = thiomap::unmix::RunOptions {
         report_shade: true,
         noise: None,
