@@ -41,6 +41,9 @@ pub struct UnmixSummary<'a> {
     /// Pixels whose solution sits on a constraint boundary the noise could move (bit 1 of
     /// fit-flags.fits).
     pub boundary_pixels: usize,
+    /// Per column (member, group or shade): the pixels where it is the boundary case —
+    /// held at zero, its multiplier within 2σ of zero. Near-twin members show up here.
+    pub boundary_by_column: std::collections::BTreeMap<String, usize>,
     /// Each band's weight 1/σ (median 1) and where σ came from.
     pub band_weights: &'a unmix::weights::BandWeights,
     pub warnings: &'a [String],
@@ -89,6 +92,19 @@ pub fn unmix_summary<'a>(r: &CubeResult<'a>) -> UnmixSummary<'a> {
         enumerated_pixels: c.enumerated,
         unexplained_test: &out.misfit.summary,
         boundary_pixels: out.boundary.iter().filter(|b| **b).count(),
+        boundary_by_column: model
+            .ids
+            .iter()
+            .enumerate()
+            .map(|(j, id)| {
+                let n = out
+                    .boundary_columns
+                    .iter()
+                    .filter(|m| **m & (1 << j) != 0)
+                    .count();
+                (id.clone(), n)
+            })
+            .collect(),
         band_weights: r.weights,
         warnings: r.warnings,
     }

@@ -92,16 +92,17 @@ pub fn upper_index(p: usize, i: usize, j: usize) -> usize {
 /// Flags the pixels whose solution sits on a constraint boundary the noise could move: a
 /// member allowed but held at zero whose multiplier is within two standard deviations of
 /// zero. `allowed` gives each pixel's allowed set (the full set, or the winning subset).
-/// Only for the non-negative solvers; `false` everywhere else.
+/// Returns, per pixel, the bit mask of the columns that are such boundary cases (0: none).
+/// Only for the non-negative solvers; 0 everywhere else.
 pub(crate) fn boundary(
     data: ArrayView3<f32>,
     model: &Model,
     passive: ArrayView2<u16>,
     scale: ArrayView2<f32>,
     allowed: &(dyn Fn(usize, usize) -> u32 + Sync),
-) -> Array2<bool> {
+) -> Array2<u32> {
     let (rows, cols, nb) = data.dim();
-    let mut flags = Array2::from_elem((rows, cols), false);
+    let mut flags = Array2::from_elem((rows, cols), 0u32);
     if !model.solver.non_negative() {
         return flags;
     }
@@ -141,8 +142,8 @@ pub(crate) fn boundary(
                 let sum: f64 = x[..mat].iter().sum();
                 let sigma = sc * sum;
                 row[c] = (0..m)
-                    .filter(|j| free & (1 << j) != 0)
-                    .any(|j| x[m + j] < 2.0 * sigma * spread[j]);
+                    .filter(|&j| free & (1 << j) != 0 && x[m + j] < 2.0 * sigma * spread[j])
+                    .fold(0u32, |mask, j| mask | (1 << j));
             }
         });
     flags

@@ -44,6 +44,9 @@ pub struct UnmixOutput {
     pub unmixed: Array2<bool>,
     /// Pixels on a constraint boundary the noise could move ([`super::errors::boundary`]).
     pub boundary: Array2<bool>,
+    /// Per pixel, the bit mask of the model's columns (bit j: column j) that are boundary
+    /// cases.
+    pub boundary_columns: Array2<u32>,
     /// The unexplained test ([`super::misfit`]).
     pub misfit: Misfit,
     pub counts: Counts,

@@ -257,7 +257,7 @@ pub fn unmix_with<T: Real>(
     let shape3 = (rows, cols, planes);
     let scale = Array2::from_shape_vec((rows, cols), sc).expect("sized above");
     let full = model.full_mask();
-    let boundary = match &subset {
+    let boundary_columns = match &subset {
         None => boundary(data, model, passive.view(), scale.view(), &|_, _| full),
         Some(pick) => boundary(
             data,
@@ -285,7 +285,8 @@ pub fn unmix_with<T: Real>(
         subset,
         residual,
         unmixed,
-        boundary,
+        boundary: boundary_columns.mapv(|m| m != 0),
+        boundary_columns,
         misfit: Misfit::default(),
         counts,
     };

@@ -139,6 +139,18 @@ fn a_recipe_sets_the_options_and_is_recorded() {
     assert_eq!(record["recipe"]["range_um"], serde_json::json!([0.4, 2.0]));
     let summary = json(&out.join("summary.json"));
     assert_eq!(summary["bands_used"], 19);
+    // Each boundary pixel has at least one boundary column, and no column more pixels than
+    // are flagged.
+    let flagged = summary["boundary_pixels"].as_u64().unwrap();
+    let by: Vec<u64> = summary["boundary_by_column"]
+        .as_object()
+        .unwrap()
+        .values()
+        .map(|v| v.as_u64().unwrap())
+        .collect();
+    assert!(flagged > 0);
+    assert!(*by.iter().max().unwrap() <= flagged, "{by:?} vs {flagged}");
+    assert!(by.iter().sum::<u64>() >= flagged, "{by:?} vs {flagged}");
     // A recipe written from run.json reproduces the result.
     let again = dir.path().join("again.toml");
     let rec: thiomap::recipe::Recipe = serde_json::from_value(record["recipe"].clone()).unwrap();
