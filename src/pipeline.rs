@@ -138,49 +138,51 @@ pub fn weighted_model(
     how: BandWeighting,
     timings: &mut Timings,
 ) -> anyhow::Result<(Model, BandWeights, Option<String>)> {
-    let mut warning = None;
+    let nb = cube.info.bands.len();
     let weights = match (how, cube.info.bands.noise_sigma()) {
-        (BandWeighting::None, _) => BandWeights::uniform(cube.info.bands.len()),
+        (BandWeighting::None, _) => BandWeights::uniform(nb),
         (BandWeighting::Auto, Some(sigma)) => {
             BandWeights::from_sigma(sigma, WeightSource::BandTable)
         }
-        (BandWeighting::Auto, None)
-            if !weights::can_estimate(
-                Model::build(resampled, params)?.columns(),
-                cube.info.bands.len(),
-            ) =>
-        {
-            let mut w = BandWeights::uniform(cube.info.bands.len());
-            w.note = Some(format!(
-                "the band table states no noise_sigma and {} bands are too few to estimate \
-                 each band's noise from the residuals (at least four per unknown): every band \
-                 weighs 1",
-                cube.info.bands.len()
-            ));
-            w
-        }
         (BandWeighting::Auto, None) => {
+            // The unweighted model: the first round of the estimate, or the answer when
+            // the weights stay uniform.
+            let plain = Model::build(resampled, params)?;
+            if !weights::can_estimate(plain.columns(), nb) {
+                let mut w = BandWeights::uniform(nb);
+                w.note = Some(format!(
+                    "the band table states no noise_sigma and {nb} bands are too few to \
+                     estimate each band's noise from the residuals (at least four per \
+                     unknown): every band weighs 1"
+                ));
+                return Ok((plain, w, None));
+            }
             let estimate = timings.time("band weights", || {
-                weights::estimate_sigma(cube.data.view(), cube.valid.view(), resampled, params)
+                weights::estimate_sigma(
+                    cube.data.view(),
+                    cube.valid.view(),
+                    resampled,
+                    &plain,
+                    params,
+                )
             })?;
             match estimate {
                 Some(sigma) => BandWeights::from_sigma(&sigma, WeightSource::Residuals),
                 None => {
-                    warning = Some(
-                        "band weights: too few pixels fit to estimate each band's noise; \
-                         every band weighs 1"
-                            .to_string(),
-                    );
-                    BandWeights::uniform(cube.info.bands.len())
+                    let warning = "band weights: too few pixels fit to estimate each band's \
+                                   noise; every band weighs 1"
+                        .to_string();
+                    return Ok((plain, BandWeights::uniform(nb), Some(warning)));
                 }
             }
         }
     };
-    let mut weighted = resampled.clone();
-    for (mut row, w) in weighted.matrix.rows_mut().into_iter().zip(&weights.weights) {
-        row *= *w;
-    }
-    Ok((Model::build(&weighted, params)?, weights, warning))
+    let model = if weights.is_uniform() {
+        Model::build(resampled, params)?
+    } else {
+        Model::build(&resampled.weighted(&weights.weights), params)?
+    };
+    Ok((model, weights, None))
 }
 
 /// Multiplies (or, `invert`, divides) each band of `data` (rows × cols × bands) by its
@@ -200,10 +202,9 @@ pub fn run_unmix(p: &mut Prepared, recipe: &CheckedRecipe, progress: &dyn Progre
     let opts = recipe.run_options();
     progress.stage("unmix", Some(p.cube.info.rows));
     let report = |done: usize| progress.rows(done);
-    let scale = scale_bands;
     let weighted = !p.weights.is_uniform();
     if weighted {
-        scale(&mut p.cube.data, &p.weights.weights, false);
+        scale_bands(&mut p.cube.data, &p.weights.weights, false);
     }
     let (data, valid) = (p.cube.data.view(), p.cube.valid.view());
     let mut out = match recipe.precision() {
@@ -211,9 +212,9 @@ pub fn run_unmix(p: &mut Prepared, recipe: &CheckedRecipe, progress: &dyn Progre
         Precision::F32 => unmix::unmix::<f32>(data, valid, &p.model, opts, &report),
     };
     if weighted {
-        scale(&mut p.cube.data, &p.weights.weights, true);
+        scale_bands(&mut p.cube.data, &p.weights.weights, true);
         if let Some(r) = out.residual.as_mut() {
-            scale(r, &p.weights.weights, true);
+            scale_bands(r, &p.weights.weights, true);
         }
     }
     out

@@ -412,17 +412,7 @@ pub fn generate(
             let fraction = (lo + (hi - lo) * rng.gen::<f64>()).exp();
             for (b, band) in bands.bands().iter().enumerate() {
                 let unit = crate::thermal::band_iof(band, t_k, SUN_DISTANCE_AU, 1.0, sun)
-                    .ok_or_else(|| {
-                        DemoError::Coverage(OutOfCoverage {
-                            band: b + 1,
-                            centre_um: band.centre_um,
-                            lo_um: crate::library::resample::support_um(band).0,
-                            hi_um: crate::library::resample::support_um(band).1,
-                            member: format!("the solar spectrum {}", sun.id),
-                            cov_lo_um: sun.coverage_um().0,
-                            cov_hi_um: sun.coverage_um().1,
-                        })
-                    })?;
+                    .ok_or_else(|| OutOfCoverage::solar(band, b, sun))?;
                 signal[(r, c, b)] += fraction * unit;
             }
             hot_spots.push(HotSpot {

@@ -171,26 +171,49 @@ fn member_value(
 ) -> Result<f64, OutOfCoverage> {
     band_value_under(&m.wavelength_um, &m.reflectance, band, weighting).ok_or_else(|| {
         let (lo_um, hi_um) = support_um(band);
-        let (mut member, (mut cov_lo_um, mut cov_hi_um)) =
-            (format!("member {}", m.id), m.coverage_um());
-        if let Weighting::Solar(sun) = weighting {
-            let (a, b) = sun.coverage_um();
-            let member_covers = lo_um >= cov_lo_um && hi_um <= cov_hi_um;
-            if member_covers && (lo_um < a || hi_um > b) {
-                member = format!("the solar spectrum {}", sun.id);
-                (cov_lo_um, cov_hi_um) = (a, b);
-            }
+        let (cov_lo_um, cov_hi_um) = m.coverage_um();
+        let member_covers = lo_um >= cov_lo_um && hi_um <= cov_hi_um;
+        match weighting {
+            Weighting::Solar(sun) if member_covers => OutOfCoverage::solar(band, index, sun),
+            _ => OutOfCoverage {
+                band: index + 1,
+                centre_um: band.centre_um,
+                lo_um,
+                hi_um,
+                member: format!("member {}", m.id),
+                cov_lo_um,
+                cov_hi_um,
+            },
         }
+    })
+}
+
+impl OutOfCoverage {
+    /// Band `index` (0-based) whose response leaves the solar table.
+    pub fn solar(band: &Band, index: usize, sun: &Sun) -> OutOfCoverage {
+        let (lo_um, hi_um) = support_um(band);
+        let (cov_lo_um, cov_hi_um) = sun.coverage_um();
         OutOfCoverage {
             band: index + 1,
             centre_um: band.centre_um,
             lo_um,
             hi_um,
-            member,
+            member: format!("the solar spectrum {}", sun.id),
             cov_lo_um,
             cov_hi_um,
         }
-    })
+    }
+}
+
+impl Resampled {
+    /// The same matrix with each band's row multiplied by its weight (a weighted problem).
+    pub fn weighted(&self, weights: &[f64]) -> Resampled {
+        let mut out = self.clone();
+        for (mut row, w) in out.matrix.rows_mut().into_iter().zip(weights) {
+            row *= *w;
+        }
+        out
+    }
 }
 
 /// Resamples every member to every band under the solar weighting: E (bands × members).

@@ -162,7 +162,8 @@ pub const ESTIMATE_PIXELS: usize = 20_000;
 pub const ESTIMATE_ROUNDS: usize = 3;
 
 /// σ_b estimated from the cube: fits of up to [`ESTIMATE_PIXELS`] valid pixels (every
-/// k-th, in order), weighted by the previous round's estimate, then [`robust_sigma`] of
+/// k-th, in order) — first with `plain`, the model of `resampled` unweighted, then
+/// weighted by the previous round's estimate — then [`robust_sigma`] of
 /// their residuals in the cube's units, over [`ESTIMATE_ROUNDS`] rounds. The residual of a
 /// fit is a little smaller than the noise (the fit takes up M of the B degrees of
 /// freedom), which [`can_estimate`] keeps small. `None` when too few pixels fit.
@@ -170,6 +171,7 @@ pub fn estimate_sigma(
     data: ArrayView3<f32>,
     valid: ArrayView2<bool>,
     resampled: &crate::library::resample::Resampled,
+    plain: &Model,
     params: &super::UnmixParams,
 ) -> Result<Option<Vec<f64>>, super::model::ModelError> {
     let chosen: Vec<(usize, usize)> = valid
@@ -187,19 +189,22 @@ pub fn estimate_sigma(
     };
     let mut w = vec![1.0; nb];
     let mut sigma = None;
-    for _ in 0..ESTIMATE_ROUNDS {
-        let mut e = resampled.clone();
-        for (mut row, wb) in e.matrix.rows_mut().into_iter().zip(&w) {
-            row *= *wb;
-        }
-        let model = Model::build(&e, params)?;
+    for round in 0..ESTIMATE_ROUNDS {
+        // The first round is the unweighted fit the caller already built.
+        let built;
+        let model = if round == 0 {
+            plain
+        } else {
+            built = Model::build(&resampled.weighted(&w), params)?;
+            &built
+        };
         let mut sub = Array3::<f32>::zeros((n, 1, nb));
         for (i, &(r, c)) in chosen.iter().enumerate() {
             for b in 0..nb {
                 sub[(i, 0, b)] = data[(r, c, b)] * w[b] as f32;
             }
         }
-        let out = super::unmix::<f64>(sub.view(), ok.view(), &model, &opts, &|_| {});
+        let out = super::unmix::<f64>(sub.view(), ok.view(), model, &opts, &|_| {});
         let Some(residual) = out.residual else {
             return Ok(None);
         };
