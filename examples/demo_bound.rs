@@ -11,7 +11,10 @@
 //! truth.json), bands weighted by 1/σ and the standard error σ·√K of the whitened problem
 //! with σ given — the constrained Cramér–Rao bound of the chosen passive set or subset.
 //!
-//! `cargo run --release --example demo_bound -- CUBE.fits [lambert] [subset K] [none] [known]`
+//! With `profile`, subset mode scores subsets by the profile-likelihood BIC even where the
+//! band table states the noise.
+//!
+//! `cargo run --release --example demo_bound -- CUBE.fits [lambert] [subset K] [none] [known] [profile]`
 
 use thiomap::cube::{Backplane, OpenOptions};
 use thiomap::unmix::weights::BandWeighting;
@@ -73,6 +76,12 @@ fn main() {
         cube.valid.view(),
         &model,
         &RunOptions {
+            // `profile`: score subsets as if the noise were unknown.
+            stated_noise: if has("profile") {
+                None
+            } else {
+                weights.stated_sigma
+            },
             noise,
             ..Default::default()
         },

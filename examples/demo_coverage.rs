@@ -65,10 +65,10 @@ fn main() {
         )
         .unwrap();
         thiomap::pipeline::scale_bands(&mut cube.data, &weights.weights, false);
-        let opts = RunOptions {
+        let opts = weights.apply(RunOptions {
             report_shade: true,
             ..Default::default()
-        };
+        });
         let out = thiomap::unmix::unmix::<f32>(
             cube.data.view(),
             cube.valid.view(),

@@ -199,7 +199,7 @@ pub fn scale_bands(data: &mut ndarray::Array3<f32>, weights: &[f64], invert: boo
 /// for the solver and scaled back afterwards (to within an f32 rounding); the residuals
 /// are reported unweighted, in the cube's units.
 pub fn run_unmix(p: &mut Prepared, recipe: &CheckedRecipe, progress: &dyn Progress) -> UnmixOutput {
-    let opts = recipe.run_options();
+    let opts = &p.weights.apply(*recipe.run_options());
     progress.stage("unmix", Some(p.cube.info.rows));
     let report = |done: usize| progress.rows(done);
     let weighted = !p.weights.is_uniform();

@@ -39,7 +39,8 @@ pub struct Args {
     bands: String,
     #[command(flatten)]
     select: BandArgs,
-    /// Signal-to-noise ratio at each band's mean surface signal (greater than 0).
+    /// Signal-to-noise ratio at 0.55 µm, at the mean surface I/F of the band nearest it
+    /// (greater than 0); other bands follow a detector model, noisier where the Sun is faint.
     #[arg(
         long,
         value_name = "SNR",

@@ -15,9 +15,14 @@
 //!   member absorbs. (Lommel–Seeliger exceeds 1 where i < e: a shade cannot brighten, so
 //!   such pixels need photometric normalisation first.) Library spectra enter through the
 //!   solar-weighted band responses ([`crate::library::resample`]).
-//! - **Noise**: per band, SNR = mean surface signal S̄ in that band / σ at S̄, with
-//!   variance σ²(s) = σ_r² + k·s split equally at S̄: σ_r² = k·S̄ = ½ (S̄/SNR)².
-//!   The mean is over sunlit surface pixels.
+//! - **Noise**: photon and read noise of a detector. A band's detected signal is
+//!   D_b = I/F × g_b with g_b ∝ F̄☉,b · Δλ_b · λ_b (the band's mean solar irradiance, its
+//!   width and, for photons per joule, its wavelength; common practice), normalised to 1 in
+//!   the band nearest 0.55 µm; σ_D² = σ_r² + k·D. SNR is quoted at 0.55 µm: at that band's
+//!   mean surface I/F Ī, σ = Ī/SNR, half of the variance from each term. In I/F units a
+//!   band's σ_b(s) = √(σ_r² + k g_b s)/g_b, so bands where the Sun is faint are noisier.
+//!   Each band's σ at its mean surface signal is written into the cube's band table
+//!   (`noise_sigma`). The mean is over sunlit surface pixels.
 //! - **Library mismatch** (optional, ±m): each member's spectrum is multiplied by
 //!   1 + m·sin(2π λ / Λ + φ) with Λ in 1.5–4 µm and φ seeded per member before resampling;
 //!   the truth stays over the library's own members.
@@ -147,17 +152,15 @@ pub struct BandNoise {
 }
 
 impl BandNoise {
-    /// Half the variance at the mean signal from each term, so SNR holds at S̄.
-    pub fn for_snr(mean_signal: f64, snr: f64) -> BandNoise {
-        let var = (mean_signal / snr).powi(2);
+    /// The detector model of the module doc for a band of gain `gain` (g_b) whose mean
+    /// surface I/F is `mean_signal`, with σ = `reference_mean`/SNR at gain 1.
+    pub fn detector(mean_signal: f64, gain: f64, reference_mean: f64, snr: f64) -> BandNoise {
+        let var = (reference_mean / snr).powi(2);
+        let (read2, k) = (0.5 * var, 0.5 * var / reference_mean.max(1e-12));
         BandNoise {
             mean_signal,
-            read_sigma: (0.5 * var).sqrt(),
-            signal_coeff: if mean_signal > 0.0 {
-                0.5 * var / mean_signal
-            } else {
-                0.0
-            },
+            read_sigma: read2.sqrt() / gain,
+            signal_coeff: k / gain,
         }
     }
 
@@ -424,8 +427,9 @@ pub fn generate(
         }
     }
 
-    // Noise at the stated SNR.
-    let noise: Vec<BandNoise> = (0..nb)
+    // Noise: the detector model of the module doc, SNR quoted at 0.55 µm.
+    let sun = crate::library::solar::Sun::embedded();
+    let mean_signal: Vec<f64> = (0..nb)
         .map(|b| {
             let (mut sum, mut n) = (0.0, 0usize);
             for r in 0..rows {
@@ -436,8 +440,17 @@ pub fn generate(
                     }
                 }
             }
-            BandNoise::for_snr(if n > 0 { sum / n as f64 } else { 0.0 }, p.snr)
+            if n > 0 {
+                sum / n as f64
+            } else {
+                0.0
+            }
         })
+        .collect();
+    let gains = detector_gains(bands, sun);
+    let reference = reference_band(bands);
+    let noise: Vec<BandNoise> = (0..nb)
+        .map(|b| BandNoise::detector(mean_signal[b], gains[b], mean_signal[reference], p.snr))
         .collect();
     let mut data = Array3::<f32>::from_elem((rows, cols, nb), f32::NAN);
     for r in 0..rows {
@@ -464,7 +477,15 @@ pub fn generate(
             },
             rows,
             cols,
-            bands: bands.clone(),
+            bands: bands
+                .clone()
+                .with_noise_sigma(
+                    noise
+                        .iter()
+                        .map(|n| n.sigma(n.mean_signal).max(1e-9))
+                        .collect(),
+                )
+                .expect("noise σ is positive"),
             quantity: Quantity::IOverF,
             spatial_wcs: Vec::new(),
             inputs: Vec::new(),
@@ -494,6 +515,33 @@ pub fn generate(
             groups,
         },
     })
+}
+
+/// The band nearest 0.55 µm, where SNR is quoted.
+fn reference_band(bands: &BandTable) -> usize {
+    let c = bands.centres_um();
+    (0..c.len())
+        .min_by(|&a, &b| (c[a] - 0.55).abs().total_cmp(&(c[b] - 0.55).abs()))
+        .unwrap_or(0)
+}
+
+/// g_b ∝ F̄☉,b · Δλ_b · λ_b, 1 in the reference band. A band without a width counts the
+/// reference band's (or 1 µm when that has none too).
+pub fn detector_gains(bands: &BandTable, sun: &crate::library::solar::Sun) -> Vec<f64> {
+    let reference = reference_band(bands);
+    let ref_width = bands.bands()[reference].fwhm_um().unwrap_or(1.0);
+    let raw: Vec<f64> = bands
+        .bands()
+        .iter()
+        .map(|b| {
+            let f = crate::library::resample::band_irradiance(sun, b)
+                .or_else(|| sun.at(b.centre_um))
+                .unwrap_or(0.0);
+            f * b.fwhm_um().unwrap_or(ref_width) * b.centre_um
+        })
+        .collect();
+    let r = raw[reference].max(f64::MIN_POSITIVE);
+    raw.iter().map(|g| (g / r).max(1e-6)).collect()
 }
 
 /// Core pixels: surface, outside transitions, not hot, and every pixel within two
@@ -527,7 +575,7 @@ mod tests {
     #[test]
     fn measured_noise_matches_the_model_at_a_uniform_signal() {
         // The noise model as stated: σ² = σ_r² + k s, half of each at the mean signal.
-        let model = BandNoise::for_snr(0.4, 100.0);
+        let model = BandNoise::detector(0.4, 1.0, 0.4, 100.0);
         assert!(
             (model.sigma(0.4) - 0.004).abs() < 1e-12,
             "SNR 100 at the mean signal"
@@ -545,6 +593,27 @@ mod tests {
             "{sd} vs {}",
             model.sigma(s)
         );
+    }
+
+    #[test]
+    fn the_detector_model_holds_the_snr_at_the_reference_and_scales_with_gain() {
+        // At gain 1 and the reference mean, σ = mean/SNR; at gain g the I/F noise of the
+        // read term is σ_r/g (common practice: noise in detected units, divided back).
+        let n = BandNoise::detector(0.5, 1.0, 0.5, 100.0);
+        assert!((n.sigma(0.5) - 0.005).abs() < 1e-12);
+        let faint = BandNoise::detector(0.5, 0.1, 0.5, 100.0);
+        assert!((faint.read_sigma - n.read_sigma / 0.1).abs() < 1e-12);
+        assert!(faint.sigma(0.5) > 3.0 * n.sigma(0.5));
+    }
+
+    #[test]
+    fn far_infrared_bands_of_the_mapper_are_noisier() {
+        let bands = crate::cube::bandsets::resolve("mapper-96").unwrap().bands;
+        let g = detector_gains(&bands, crate::library::solar::Sun::embedded());
+        let c = bands.centres_um();
+        let at = |um: f64| g[c.iter().position(|&x| (x - um).abs() < 0.03).unwrap()];
+        assert!((at(0.55) - 1.0).abs() < 0.2);
+        assert!(at(4.5) < 0.5 * at(0.55), "{} vs {}", at(4.5), at(0.55));
     }
 
     #[test]

@@ -166,6 +166,7 @@ impl Draft {
             run: RunOptions {
                 report_shade: r.shade,
                 noise: r.noise,
+                stated_noise: None,
                 residuals: r.residuals,
                 false_alarm: r.unexplained_p,
             },

@@ -188,6 +188,11 @@ pub struct RunOptions {
     pub report_shade: bool,
     /// Noise σ for standard errors; `None` estimates per pixel.
     pub noise: Option<f64>,
+    /// The noise σ the cube's band table states (in the whitened units of the band
+    /// weights: a band of median noise), when `noise` is not given. Subset mode scores
+    /// subsets with it; standard errors keep each pixel's own estimate, since the stated σ
+    /// is the noise at a band's mean signal and a pixel's varies with its brightness.
+    pub stated_noise: Option<f64>,
     pub residuals: bool,
     /// The unexplained test's false-alarm probability ([`super::misfit`]).
     pub false_alarm: f64,
@@ -198,6 +203,7 @@ impl Default for RunOptions {
         RunOptions {
             report_shade: true,
             noise: None,
+            stated_noise: None,
             residuals: false,
             false_alarm: super::misfit::DEFAULT_FALSE_ALARM,
         }

@@ -9,7 +9,10 @@ use super::plan::{Plan, Slots};
 use super::solve::{pivot, positives, Real};
 
 /// Subset mode (the slow path, in f64 whatever the run's precision): every allowed subset
-/// is solved and scored by BIC; the estimate averages the subsets' solutions with weights
+/// is solved and scored by BIC (Schwarz 1978): with the noise σ known (`--noise`, or the
+/// band table's stated σ) BIC = RSS/σ² + k ln n, the Gaussian log-likelihood's χ²;
+/// without it the profile form n ln(RSS/n) + k ln n, σ² estimated by RSS/n, which on a
+/// few bands is itself noisy and so picks subsets less well. The estimate averages the subsets' solutions with weights
 /// exp(−ΔBIC/2) (Bayesian model averaging), so members the bands cannot tell apart share
 /// the abundance instead of one being picked by the noise. Subset RSS = (yᵀy − zᵀz) +
 /// ‖z − R a‖² in f64.
@@ -24,6 +27,7 @@ pub(super) fn rows_subsets<T: Real, const M: usize, const D: usize, const FUSED:
     let model = plan.model;
     let nb = plan.bands;
     let n = nb as f64;
+    let known = plan.opts.noise.or(plan.opts.stated_noise).map(|s| s * s);
     let mut scores: Vec<f64> = Vec::new();
     let mut sols: Vec<[f64; M]> = Vec::new();
     let mut sets: Vec<u32> = Vec::new();
@@ -48,7 +52,10 @@ pub(super) fn rows_subsets<T: Real, const M: usize, const D: usize, const FUSED:
             let am: &[f64; D] = a[..D].try_into().expect("D materials");
             let rss = whitened_rss::<f64, D, FUSED>(&z, yy, am, &plan.rcol).max(1e-30);
             let k = a.iter().filter(|v| **v > 0.0).count() as f64;
-            let score = n * (rss / n).ln() + k * n.ln();
+            let score = match known {
+                Some(s2) => rss / s2 + k * n.ln(),
+                None => n * (rss / n).ln() + k * n.ln(),
+            };
             scores.push(score);
             sols.push(a);
             sets.push(o.passive);

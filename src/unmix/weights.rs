@@ -67,6 +67,11 @@ pub struct BandWeights {
     pub source: WeightSource,
     /// w_b, median 1.
     pub weights: Vec<f64>,
+    /// The median of the band table's σ_b, when the weights come from it: the noise of
+    /// the whitened problem, which subset mode scores subsets with
+    /// ([`RunOptions::stated_noise`]).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub stated_sigma: Option<f64>,
     /// Why the weights are uniform under `auto`, when they are.
     #[serde(skip_serializing_if = "Option::is_none")]
     pub note: Option<String>,
@@ -77,6 +82,7 @@ impl BandWeights {
         BandWeights {
             source: WeightSource::Uniform,
             weights: vec![1.0; bands],
+            stated_sigma: None,
             note: None,
         }
     }
@@ -87,7 +93,16 @@ impl BandWeights {
         BandWeights {
             source,
             weights: sigma.iter().map(|s| m / s).collect(),
+            stated_sigma: (source == WeightSource::BandTable).then_some(m),
             note: None,
+        }
+    }
+
+    /// The run options with the stated noise of these weights filled in.
+    pub fn apply(&self, opts: RunOptions) -> RunOptions {
+        RunOptions {
+            stated_noise: self.stated_sigma,
+            ..opts
         }
     }
 

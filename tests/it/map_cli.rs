@@ -72,7 +72,13 @@ fn map_writes_the_whole_results_folder() {
         &header[..5],
         &["unit", "label", "class", "pixels", "area_fraction"]
     );
-    assert!(header.contains(&"mean_so2-frost-fine") && header.contains(&"std_basalt-dark"));
+    // The two frost members differ mostly beyond 3 µm, where this cube's detector noise
+    // is largest, so the weighted bands report them as one group.
+    assert!(
+        header.contains(&"mean_so2-frost-fine+so2-frost-coarse")
+            && header.contains(&"std_basalt-dark"),
+        "{header:?}"
+    );
     assert_eq!(&header[header.len() - 2..], &["mean_rmse", "colour"]);
     // units.fits: int16, 0 = no data.
     let src = thiomap::fits::Source::open(&out.join("units.fits")).unwrap();

@@ -74,3 +74,23 @@ pub fn f32_fits(axes: [usize; 3], samples: &[f32], extra: &[(&str, &str)]) -> Ve
     bytes.resize(bytes.len().div_ceil(2880) * 2880, 0);
     bytes
 }
+
+/// The model and band weights `map` would use for `cube` (automatic weights), with the
+/// cube's bands already scaled by them, and the run options with their stated noise.
+pub fn as_map_runs(
+    cube: &mut thiomap::cube::Cube,
+    resampled: &thiomap::library::resample::Resampled,
+    params: &thiomap::unmix::UnmixParams,
+    opts: thiomap::unmix::RunOptions,
+) -> (thiomap::unmix::Model, thiomap::unmix::RunOptions) {
+    let (model, weights, _) = thiomap::pipeline::weighted_model(
+        cube,
+        resampled,
+        params,
+        thiomap::unmix::weights::BandWeighting::Auto,
+        &mut Default::default(),
+    )
+    .unwrap();
+    thiomap::pipeline::scale_bands(&mut cube.data, &weights.weights, false);
+    (model, weights.apply(opts))
+}

@@ -7,7 +7,7 @@ use thiomap::cube::{Backplane, OpenOptions};
 use thiomap::library::Library;
 use thiomap::units::cluster::{adjusted_rand_index, assign, fit, Method};
 use thiomap::units::{classify, MaterialSpectra, Rules, UnitParams};
-use thiomap::unmix::{Model, RunOptions, UnmixParams};
+use thiomap::unmix::{RunOptions, UnmixParams};
 
 #[test]
 fn k_means_on_iris_finds_the_classic_three_clusters() {
@@ -94,17 +94,20 @@ fn demo_ari(name: &str, unmix: &UnmixParams) -> (f64, f64, thiomap::units::UnitM
     let path = std::path::Path::new(env!("CARGO_MANIFEST_DIR"))
         .join("demo-cubes")
         .join(name);
-    let cube = thiomap::cube::load(&path, &OpenOptions::default()).unwrap();
+    let mut cube = thiomap::cube::load(&path, &OpenOptions::default()).unwrap();
     let truth = thiomap::demo::files::TruthFiles::read(&path).unwrap();
     let lib = Library::embedded();
     let r = thiomap::library::resample::resample(&lib, &cube.info.bands).unwrap();
-    let model = Model::build(&r, unmix).unwrap();
-    let opts = RunOptions {
-        report_shade: true,
-        noise: None,
-        residuals: false,
-        ..Default::default()
-    };
+    // As `map` runs it, band weights included.
+    let (model, opts) = super::support::as_map_runs(
+        &mut cube,
+        &r,
+        unmix,
+        RunOptions {
+            report_shade: true,
+            ..Default::default()
+        },
+    );
     let out =
         thiomap::unmix::unmix::<f32>(cube.data.view(), cube.valid.view(), &model, &opts, &|_| {});
     let spectra = MaterialSpectra::new(&lib, &out.ids);

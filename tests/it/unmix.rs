@@ -253,21 +253,15 @@ fn demo_rmse(
     let lib = thiomap::library::Library::embedded();
     let r = thiomap::library::resample::resample(&lib, &cube.info.bands).unwrap();
     // As `unmix` runs it, band weights included.
-    let (model, weights, _) = thiomap::pipeline::weighted_model(
-        &cube,
+    let (model, opts) = super::support::as_map_runs(
+        &mut cube,
         &r,
         params,
-        thiomap::unmix::weights::BandWeighting::Auto,
-        &mut Default::default(),
-    )
-    .unwrap();
-    thiomap::pipeline::scale_bands(&mut cube.data, &weights.weights, false);
-    let opts = thiomap::unmix::RunOptions {
-        report_shade: true,
-        noise: None,
-        residuals: false,
-        ..Default::default()
-    };
+        thiomap::unmix::RunOptions {
+            report_shade: true,
+            ..Default::default()
+        },
+    );
     let out =
         thiomap::unmix::unmix::<f32>(cube.data.view(), cube.valid.view(), &model, &opts, &|_| {});
     let materials: Vec<String> = out.ids.iter().filter(|i| *i != "shade").cloned().collect();

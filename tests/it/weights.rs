@@ -37,9 +37,12 @@ fn noisy_scene(state_sigma: bool) -> (thiomap::demo::Scene, Vec<f64>) {
         }
     }
     let sigma: Vec<f64> = (0..nb).map(|b| base[b].hypot(extra[b])).collect();
-    if state_sigma {
-        scene.cube.info.bands = bands.with_noise_sigma(sigma.clone()).unwrap();
-    }
+    // The demo states its own detector noise; replace it with the true σ, or state none.
+    scene.cube.info.bands = if state_sigma {
+        bands.with_noise_sigma(sigma.clone()).unwrap()
+    } else {
+        bands
+    };
     (scene, sigma)
 }
 
@@ -149,15 +152,32 @@ fn the_choice_is_a_recipe_key_and_a_flag() {
         "sigma",
     ]);
     assert_eq!(bad.status.code(), Some(2));
-    // auto on a 7-band cube without a stated noise: too few bands to estimate, and it says so.
-    let out2 = dir.path().join("a");
+    // auto on the shipped cube: its band table states the noise, and the summary says so.
+    let out1 = dir.path().join("s");
     let run = super::support::thiomap(&[
         "unmix",
         cube.to_str().unwrap(),
         "--out",
+        out1.to_str().unwrap(),
+    ]);
+    assert!(run.status.success(), "{}", super::support::stderr(&run));
+    let summary: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(out1.join("summary.json")).unwrap()).unwrap();
+    assert_eq!(summary["band_weights"]["source"], "band-table");
+    assert!(summary["band_weights"]["stated_sigma"].as_f64().unwrap() > 0.0);
+    // auto on a 7-band cube without a stated noise: too few bands to estimate, and it says so.
+    let mut plain = thiomap::cube::load(&cube, &Default::default()).unwrap();
+    plain.info.bands = thiomap::cube::bandsets::resolve("imager-7").unwrap().bands;
+    let bare = dir.path().join("bare.fits");
+    thiomap::cube::fits::write_cube(&bare, &plain).unwrap();
+    let out2 = dir.path().join("a");
+    let run = super::support::thiomap(&[
+        "unmix",
+        bare.to_str().unwrap(),
+        "--out",
         out2.to_str().unwrap(),
     ]);
-    assert!(run.status.success());
+    assert!(run.status.success(), "{}", super::support::stderr(&run));
     let summary: serde_json::Value =
         serde_json::from_str(&std::fs::read_to_string(out2.join("summary.json")).unwrap()).unwrap();
     assert_eq!(summary["band_weights"]["source"], "uniform");
