@@ -34,7 +34,17 @@ pub struct Prepared {
     pub model: Model,
     /// The band weights the cube is scaled by while it is unmixed.
     pub weights: BandWeights,
+    /// The thermal fit to run after unmixing, when there is one.
+    pub thermal: Option<crate::thermal::plan::Plan>,
     pub warnings: Vec<String>,
+}
+
+/// The thermal stage's results: its plan, the per-pixel planes and the hot-spot table.
+#[derive(Debug, Clone)]
+pub struct ThermalResult {
+    pub plan: crate::thermal::plan::Plan,
+    pub output: crate::thermal::stage::ThermalOutput,
+    pub spots: Vec<crate::thermal::spots::HotSpot>,
 }
 
 /// Reads the cube, applies the band selection and the photometric law, resamples the
@@ -106,10 +116,32 @@ pub fn prepare(
             model.condition
         ));
     }
+    let r = recipe.recipe();
+    let request = crate::thermal::plan::Request {
+        mode: r.thermal,
+        range_k: (r.thermal_range_k[0], r.thermal_range_k[1]),
+        emissivity: r.emissivity,
+        sun_distance_au: r.sun_distance_au,
+        law,
+    };
+    let thermal = match crate::thermal::plan::resolve(
+        &request,
+        &cube,
+        crate::library::solar::Sun::embedded(),
+    )
+    .map_err(|e| anyhow::anyhow!("{}: {e}", path.display()))?
+    {
+        crate::thermal::plan::Resolved::Fit(plan) => Some(plan),
+        crate::thermal::plan::Resolved::Off(note) => {
+            warnings.extend(note);
+            None
+        }
+    };
     Ok(Prepared {
         cube,
         model,
         weights,
+        thermal,
         warnings,
     })
 }
@@ -254,6 +286,69 @@ pub fn run_units(
     Ok(map)
 }
 
+/// Fits emission where the screen finds it ([`crate::thermal::stage`]), updating the
+/// unmixing output of the fitted pixels.
+pub fn run_thermal(
+    p: &Prepared,
+    out: &mut UnmixOutput,
+    recipe: &CheckedRecipe,
+    progress: &dyn Progress,
+) -> Option<crate::thermal::stage::ThermalOutput> {
+    let plan = p.thermal.as_ref()?;
+    progress.stage("thermal", None);
+    let centres = p.cube.info.bands.centres_um();
+    let inputs = crate::thermal::stage::Inputs {
+        data: p.cube.data.view(),
+        weights: &p.weights.weights,
+        centres_um: &centres,
+        model: &p.model,
+        divisor: plan.divisor.as_ref().map(|d| d.view()),
+        mode: plan.mode,
+        range_k: plan.range_k,
+        noise: recipe.run_options().noise,
+    };
+    let sun = crate::library::solar::Sun::embedded();
+    Some(crate::thermal::stage::run(&inputs, out, || {
+        plan.columns(&p.cube, sun)
+    }))
+}
+
+/// The hot-spot table of a thermal output, with areas in km² when the recipe gives the
+/// body's radius and the cube the latitude and longitude backplanes.
+pub fn hot_spots(
+    p: &Prepared,
+    output: &crate::thermal::stage::ThermalOutput,
+    map: Option<&UnitMap>,
+    recipe: &CheckedRecipe,
+) -> Vec<crate::thermal::spots::HotSpot> {
+    let plane = |b| p.cube.backplanes.get(&b);
+    let lat_lon = match (
+        plane(cube::Backplane::Latitude),
+        plane(cube::Backplane::Longitude),
+    ) {
+        (Some(a), Some(b)) => Some((a.view(), b.view())),
+        _ => None,
+    };
+    let area = match (lat_lon, recipe.recipe().body_radius_km) {
+        (Some((lat, lon)), Some(radius)) => {
+            units::area::cell_areas_sr(lat, lon).map(|sr| sr.mapv(|s| s * radius * radius))
+        }
+        _ => None,
+    };
+    let names: Vec<String> = map
+        .map(|m| m.units.iter().map(|u| u.label.clone()).collect())
+        .unwrap_or_default();
+    crate::thermal::spots::hot_spots(&crate::thermal::spots::SpotInputs {
+        fitted: output.fitted.view(),
+        planes: output.planes.view(),
+        components: output.components,
+        lat_lon,
+        area_km2: area.as_ref().map(|a| a.view()),
+        emissivity: p.thermal.as_ref().map_or(1.0, |t| t.emissivity),
+        units: map.map(|m| (m.labels.view(), names.as_slice())),
+    })
+}
+
 /// An error of one stage of the main job.
 #[derive(Debug)]
 pub struct StageError {
@@ -332,7 +427,10 @@ pub fn run_cube(
     for w in &prepared.warnings {
         progress.warn(w);
     }
-    let unmixed = timings.time("unmix", || run_unmix(&mut prepared, recipe, progress));
+    let mut unmixed = timings.time("unmix", || run_unmix(&mut prepared, recipe, progress));
+    let thermal_out = timings.time("thermal", || {
+        run_thermal(&prepared, &mut unmixed, recipe, progress)
+    });
     let map = match job {
         Job::Unmix => None,
         Job::Map => Some(at(
@@ -340,8 +438,17 @@ pub fn run_cube(
             timings.time("units", || run_units(&prepared, &unmixed, recipe, progress)),
         )?),
     };
+    let thermal = thermal_out.map(|output| ThermalResult {
+        plan: prepared
+            .thermal
+            .clone()
+            .expect("a thermal output has its plan"),
+        spots: hot_spots(&prepared, &output, map.as_ref(), recipe),
+        output,
+    });
     let result = CubeResult {
         command: job.name(),
+        thermal: thermal.as_ref(),
         cube: &prepared.cube,
         library: recipe.library(),
         model: &prepared.model,

@@ -92,6 +92,21 @@ pub struct UnmixArgs {
     /// unweighted fit of a sample of pixels; none weighs every band alike.
     #[arg(long, value_name = "HOW", value_parser = ["auto", "none"])]
     pub band_weights: Option<String>,
+    /// Fit thermal emission with the reflected light where something glows: auto (default:
+    /// one temperature, when the cube has bands beyond 2.5 µm and the Sun's distance is
+    /// known), one, two (two temperatures per pixel) or off. Writes thermal.fits and the
+    /// hot-spot table.
+    #[arg(long, value_name = "MODE", value_parser = ["off", "auto", "one", "two"])]
+    pub thermal: Option<String>,
+    /// The temperatures searched, K, as MIN-MAX. Default 300-1800.
+    #[arg(long, value_name = "MIN-MAX", value_parser = parse_kelvin_range, allow_hyphen_values = true)]
+    pub thermal_range: Option<(f64, f64)>,
+    /// Emissivity of the hot surface, in (0, 1]. Default 1.
+    #[arg(long, value_name = "E", allow_hyphen_values = true)]
+    pub emissivity: Option<f64>,
+    /// The Sun's distance in AU, over the cube's SUNDIST / sun_distance_au.
+    #[arg(long, value_name = "AU", allow_hyphen_values = true)]
+    pub sun_distance: Option<f64>,
     #[command(flatten)]
     pub select: BandArgs,
     /// FITS only: the HDU that holds the cube, by EXTNAME or index.
@@ -193,6 +208,31 @@ impl UnmixArgs {
                 .map_err(|e| anyhow::anyhow!("--band-weights {e}"))?,
             |r, v| r.band_weights = v,
         );
+        d.flag(
+            "thermal",
+            "--thermal",
+            self.thermal
+                .as_deref()
+                .map(thiomap::thermal::Mode::parse)
+                .transpose()
+                .map_err(|e| anyhow::anyhow!("--thermal {e}"))?,
+            |r, v| r.thermal = v,
+        );
+        d.flag(
+            "thermal_range_k",
+            "--thermal-range",
+            self.thermal_range,
+            |r, (a, b)| r.thermal_range_k = [a, b],
+        );
+        d.flag("emissivity", "--emissivity", self.emissivity, |r, v| {
+            r.emissivity = v
+        });
+        d.flag(
+            "sun_distance_au",
+            "--sun-distance",
+            self.sun_distance,
+            |r, v| r.sun_distance_au = Some(v),
+        );
         d.flag("range_um", "--range", self.select.range(), |r, (a, b)| {
             r.range_um = Some([a, b])
         });
@@ -243,4 +283,18 @@ pub fn run(args: Args) -> anyhow::Result<ExitCode> {
         done.ids.join(", ")
     );
     Ok(ExitCode::SUCCESS)
+}
+
+/// `MIN-MAX` in kelvin (the order is checked with the recipe, so that a reversed range is
+/// reported like one from a file).
+fn parse_kelvin_range(s: &str) -> Result<(f64, f64), String> {
+    let (a, b) = s
+        .split_once('-')
+        .ok_or_else(|| format!("\"{s}\": expected MIN-MAX in K, e.g. 300-1800"))?;
+    let num = |v: &str| {
+        v.trim()
+            .parse::<f64>()
+            .map_err(|_| format!("\"{s}\": expected MIN-MAX in K, e.g. 300-1800"))
+    };
+    Ok((num(a)?, num(b)?))
 }

@@ -152,6 +152,24 @@ impl Draft {
                 "the false-alarm probability must lie between 0 and 0.5 (0.001 is usual)",
             ));
         }
+        let [t_lo, t_hi] = r.thermal_range_k;
+        if !(t_lo.is_finite() && t_hi.is_finite() && t_lo > 0.0 && t_hi > t_lo) {
+            return Err(self.broken(
+                "thermal_range_k",
+                "the range must run from a lower to a higher temperature above 0 K, e.g. 300-1800",
+            ));
+        }
+        if !(r.emissivity > 0.0 && r.emissivity <= 1.0) {
+            return Err(self.broken("emissivity", "the emissivity must lie in (0, 1]"));
+        }
+        if let Some(d) = r.sun_distance_au {
+            if !(d.is_finite() && d > 0.0) {
+                return Err(self.broken(
+                    "sun_distance_au",
+                    "the Sun's distance must be greater than 0 AU",
+                ));
+            }
+        }
         let units = match scope {
             Scope::Unmix => None,
             Scope::Map => Some((self.unit_params()?, self.load_rules()?)),

@@ -20,6 +20,10 @@
 //! precision = "f32"         # f32 (fast) or f64 (reference)
 //! photometry = "none"       # none, lambert or lommel-seeliger (needs the backplanes)
 //! band_weights = "auto"     # 1/σ per band (band table, else estimated) or "none"
+//! thermal = "auto"          # off, auto, one or two temperatures of emission
+//! thermal_range_k = [300.0, 1800.0]
+//! emissivity = 1.0
+//! # sun_distance_au = 4.8   # overrides the cube's SUNDIST / sun_distance_au
 //! # map only:
 //! units = "auto"            # or K
 //! max_units = 10
@@ -87,6 +91,15 @@ pub struct Recipe {
     pub photometry: Option<Law>,
     /// Bands weighted by 1/σ ("auto") or all alike ("none").
     pub band_weights: crate::unmix::weights::BandWeighting,
+    /// Thermal emission fitted with the reflected light ([`crate::thermal`]).
+    pub thermal: crate::thermal::Mode,
+    /// The temperature range searched, K.
+    pub thermal_range_k: [f64; 2],
+    /// The emitting surface's emissivity, (0, 1].
+    pub emissivity: f64,
+    /// The Sun's distance, AU, over the cube's own.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub sun_distance_au: Option<f64>,
     /// `map` only: the number of units, or "auto".
     pub units: UnitCount,
     /// `map` only: the largest K tried by "auto".
@@ -310,6 +323,13 @@ impl Default for Recipe {
             precision: Precision::F32,
             photometry: None,
             band_weights: crate::unmix::weights::BandWeighting::Auto,
+            thermal: crate::thermal::Mode::Auto,
+            thermal_range_k: [
+                crate::thermal::DEFAULT_RANGE_K.0,
+                crate::thermal::DEFAULT_RANGE_K.1,
+            ],
+            emissivity: 1.0,
+            sun_distance_au: None,
             units: UnitCount::Auto,
             max_units: u.max_units,
             sample: SampleSize::N(crate::units::DEFAULT_SAMPLE),

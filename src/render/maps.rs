@@ -187,3 +187,55 @@ pub fn unit_map(
     }
     img
 }
+
+/// A marked spot on a picture: its centre in cube pixels (row, col; internal rows) and a
+/// label.
+pub struct Marker {
+    pub row: f64,
+    pub col: f64,
+    pub label: String,
+}
+
+/// Draws each marker on `img` (a picture of a `rows`-row cube enlarged by a whole factor)
+/// as a ring in a colour no unit or true colour is likely to be (cyan with a black casing)
+/// with its label beside it, in the compiled-in font.
+pub fn mark_spots(
+    img: &RgbImage,
+    rows: usize,
+    row0_at_bottom: bool,
+    markers: &[Marker],
+) -> RgbImage {
+    use plotters::prelude::*;
+    super::plot::register_font();
+    let (w, h) = img.dimensions();
+    let f = h as f64 / rows.max(1) as f64;
+    let mut buf = img.as_raw().clone();
+    {
+        let root = BitMapBackend::with_buffer(&mut buf, (w, h)).into_drawing_area();
+        let radius = (f * 2.0).max(7.0) as i32;
+        let font = (super::plot::FAMILY, (f * 2.5).clamp(13.0, 22.0))
+            .into_font()
+            .color(&WHITE);
+        for m in markers {
+            let pr = if row0_at_bottom {
+                rows as f64 - 1.0 - m.row
+            } else {
+                m.row
+            };
+            let (x, y) = (((m.col + 0.5) * f) as i32, ((pr + 0.5) * f) as i32);
+            let _ = root.draw(&Circle::new((x, y), radius + 1, BLACK.stroke_width(4)));
+            let _ = root.draw(&Circle::new((x, y), radius, CYAN.stroke_width(2)));
+            let at = (x + radius + 4, y - radius);
+            // A dark halo behind the text, so it reads on light ground.
+            for (dx, dy) in [(-1, 0), (1, 0), (0, -1), (0, 1)] {
+                let halo = (super::plot::FAMILY, (f * 2.5).clamp(13.0, 22.0))
+                    .into_font()
+                    .color(&BLACK);
+                let _ = root.draw(&Text::new(m.label.clone(), (at.0 + dx, at.1 + dy), halo));
+            }
+            let _ = root.draw(&Text::new(m.label.clone(), at, font.clone()));
+        }
+        let _ = root.present();
+    }
+    RgbImage::from_raw(w, h, buf).expect("the buffer keeps its size")
+}

@@ -41,6 +41,8 @@ pub struct CubeResult<'a> {
     pub unmixed: &'a UnmixOutput,
     /// The surface units (`map` only).
     pub units: Option<&'a UnitMap>,
+    /// The thermal fit, when one ran.
+    pub thermal: Option<&'a crate::pipeline::ThermalResult>,
     pub recipe: &'a Recipe,
     /// The warnings the run gave, recorded in `summary.json`.
     pub warnings: &'a [String],
@@ -113,6 +115,9 @@ fn write_products(dir: &Path, r: &CubeResult) -> Result<(), WriteError> {
     products::covariance_planes(dir, r)?;
     products::fit_rmse_plane(dir, r)?;
     products::fit_flags_plane(dir, r)?;
+    products::thermal_planes(dir, r)?;
+    products::hot_spot_tables(dir, r)?;
+    products::hot_spot_picture(dir, r)?;
     products::residual_planes(dir, r)?;
     products::abundance_pictures(dir, r)?;
     products::fit_rmse_picture(dir, r)?;

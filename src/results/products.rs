@@ -159,7 +159,7 @@ pub mod flag_bits {
     /// A member held at zero whose KKT multiplier is within 2σ of zero: the noise could
     /// have made it non-zero, so the Cramér–Rao errors describe a truncated estimate.
     pub const BOUNDARY: u8 = 1;
-    /// Fitted with a thermal term (reserved for hot-spot fitting; not set yet).
+    /// Fitted with a thermal term: the abundances are the joint fit's.
     pub const THERMAL: u8 = 2;
     /// Unexplained by the library: the χ² test of the residual failed.
     pub const UNEXPLAINED: u8 = 4;
@@ -170,7 +170,11 @@ pub fn fit_flags_plane(dir: &Path, r: &CubeResult) -> Result<(), WriteError> {
     let out = r.unmixed;
     let flags = ndarray::Array2::from_shape_fn(out.unmixed.dim(), |(y, x)| {
         let at = |a: &ndarray::Array2<bool>| a.get((y, x)).copied().unwrap_or(false);
+        let thermal = r
+            .thermal
+            .is_some_and(|t| t.output.fitted.get((y, x)).copied().unwrap_or(false));
         flag_bits::BOUNDARY * at(&out.boundary) as u8
+            + flag_bits::THERMAL * thermal as u8
             + flag_bits::UNEXPLAINED * at(&out.misfit.flagged) as u8
     });
     let mut cards = common_cards(&r.cube.info, "fit flags, bits");
@@ -463,4 +467,118 @@ pub fn summary(dir: &Path, r: &CubeResult) -> Result<(), WriteError> {
         s.extend(u);
     }
     super::write_json(&path, &value)
+}
+
+/// The caution every hot-spot product carries.
+pub const HOT_SPOT_CAUTION: &str = "Temperatures and areas are model estimates from single-pixel \
+fits, with the stated standard errors; they depend on the emissivity assumed and on \
+unresolved mixtures of temperatures. Active vents carry SO2 and H2S gas, heat and unstable \
+ground: decisions about approaching or observing them defer to local codes, licensed \
+practice and mission flight rules.";
+
+/// `thermal.fits`: T, f and their standard errors per pixel (NaN where not fitted).
+pub fn thermal_planes(dir: &Path, r: &CubeResult) -> Result<(), WriteError> {
+    let Some(t) = r.thermal else { return Ok(()) };
+    let extra = vec![
+        Card::new(
+            "SUNDIST",
+            Value::Real(t.plan.sun_distance_au),
+            "Sun distance used, AU",
+        ),
+        Card::new("EMISSIVT", Value::Real(t.plan.emissivity), "emissivity"),
+        Card::new("TMIN", Value::Real(t.plan.range_k.0), "search range, K"),
+        Card::new("TMAX", Value::Real(t.plan.range_k.1), "search range, K"),
+    ];
+    write_planes_with(
+        &dir.join("thermal.fits"),
+        &t.output.names,
+        &t.output.planes,
+        &r.cube.info,
+        "thermal fit: temperature K, area fraction, standard errors",
+        extra,
+    )
+}
+
+/// `hotspots.csv` and `hotspots.json`: one row per hot spot; the caution heads both.
+pub fn hot_spot_tables(dir: &Path, r: &CubeResult) -> Result<(), WriteError> {
+    let Some(t) = r.thermal else { return Ok(()) };
+    let mut w = csv::Writer::from_writer(Vec::new());
+    let csv_err = |e: csv::Error| failed(dir, "hotspots.csv", e);
+    w.write_record([
+        "id",
+        "row",
+        "col",
+        "lat_deg",
+        "lon_deg",
+        "pixels",
+        "peak_temperature_k",
+        "peak_temperature_k_stderr",
+        "mean_temperature_k",
+        "mean_temperature_k_stderr",
+        "hot_area",
+        "area_unit",
+        "power_w",
+        "unit",
+    ])
+    .map_err(csv_err)?;
+    let opt = |v: Option<f64>, p: usize| v.map_or(String::new(), |v| format!("{v:.p$}"));
+    for s in &t.spots {
+        w.write_record([
+            s.id.to_string(),
+            format!("{:.2}", s.row),
+            format!("{:.2}", s.col),
+            opt(s.lat_deg, 4),
+            opt(s.lon_deg, 4),
+            s.pixels.to_string(),
+            format!("{:.1}", s.peak_temperature_k),
+            format!("{:.1}", s.peak_temperature_k_stderr),
+            format!("{:.1}", s.mean_temperature_k),
+            format!("{:.1}", s.mean_temperature_k_stderr),
+            format!("{:.6e}", s.hot_area),
+            s.area_unit.to_string(),
+            s.power_w.map_or(String::new(), |p| format!("{p:.4e}")),
+            s.unit.clone().unwrap_or_default(),
+        ])
+        .map_err(csv_err)?;
+    }
+    let body = w.into_inner().map_err(|e| failed(dir, "hotspots.csv", e))?;
+    let mut bytes = format!("# {}\n", HOT_SPOT_CAUTION.replace('\n', " ")).into_bytes();
+    bytes.extend(body);
+    atomic::write_bytes(&dir.join("hotspots.csv"), &bytes)?;
+    super::write_json(
+        &dir.join("hotspots.json"),
+        &serde_json::json!({
+            "caution": HOT_SPOT_CAUTION,
+            "mode": t.plan.mode.name(),
+            "sun_distance_au": t.plan.sun_distance_au,
+            "sun_distance_source": t.plan.sun_distance_source,
+            "emissivity": t.plan.emissivity,
+            "temperature_range_k": [t.plan.range_k.0, t.plan.range_k.1],
+            "spots": t.spots,
+        }),
+    )
+}
+
+/// `hotspots.png`: the spots ringed on the true-colour picture, labelled by id and peak
+/// temperature.
+pub fn hot_spot_picture(dir: &Path, r: &CubeResult) -> Result<(), WriteError> {
+    let Some(t) = r.thermal else { return Ok(()) };
+    let (tc, _) = render::maps::true_colour(r.cube);
+    let big = render::maps::enlarge(&tc, 512);
+    let markers: Vec<render::maps::Marker> = t
+        .spots
+        .iter()
+        .map(|s| render::maps::Marker {
+            row: s.row,
+            col: s.col,
+            label: format!("{} · {:.0} K", s.id, s.peak_temperature_k),
+        })
+        .collect();
+    let img = render::maps::mark_spots(
+        &big,
+        r.cube.info.rows,
+        r.cube.info.format.row0_at_bottom(),
+        &markers,
+    );
+    write_png(&dir.join("hotspots.png"), &img)
 }

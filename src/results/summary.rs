@@ -46,6 +46,10 @@ pub struct UnmixSummary<'a> {
     pub boundary_by_column: std::collections::BTreeMap<String, usize>,
     /// Each band's weight 1/σ (median 1) and where σ came from.
     pub band_weights: &'a unmix::weights::BandWeights,
+    /// The thermal fit, when one ran: its settings, the pixels screened and fitted, the
+    /// hot-spot count and the hottest spot.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub thermal: Option<serde_json::Value>,
     pub warnings: &'a [String],
 }
 
@@ -106,6 +110,27 @@ pub fn unmix_summary<'a>(r: &CubeResult<'a>) -> UnmixSummary<'a> {
             })
             .collect(),
         band_weights: r.weights,
+        thermal: r.thermal.map(|t| {
+            let hottest = t.spots.first();
+            serde_json::json!({
+                "mode": t.plan.mode.name(),
+                "temperature_range_k": [t.plan.range_k.0, t.plan.range_k.1],
+                "emissivity": t.plan.emissivity,
+                "sun_distance_au": t.plan.sun_distance_au,
+                "sun_distance_source": t.plan.sun_distance_source,
+                "column": t.plan.column_note,
+                "screened_pixels": t.output.screened,
+                "fitted_pixels": t.output.fitted.iter().filter(|f| **f).count(),
+                "hot_spots": t.spots.len(),
+                "hottest": hottest.map(|s| serde_json::json!({
+                    "id": s.id,
+                    "peak_temperature_k": s.peak_temperature_k,
+                    "peak_temperature_k_stderr": s.peak_temperature_k_stderr,
+                    "lat_deg": s.lat_deg,
+                    "lon_deg": s.lon_deg,
+                })),
+            })
+        }),
         warnings: r.warnings,
     }
 }

@@ -70,6 +70,9 @@ pub struct StdErrors {
     /// Subset mode: the reported planes' covariance per pixel, upper triangle row by row
     /// ([`upper_index`]); NaN where not unmixed.
     pub(super) mixture: Option<Array3<f32>>,
+    /// Pixels refitted after unmixing (the thermal stage): their reported planes'
+    /// covariance, P × P row-major.
+    pub(crate) overrides: std::collections::HashMap<(usize, usize), Vec<f64>>,
 }
 
 impl UnmixOutput {
@@ -88,6 +91,9 @@ impl UnmixOutput {
         let p = self.ids.len();
         if !self.unmixed[(r, c)] {
             return None;
+        }
+        if let Some(cov) = self.errors.overrides.get(&(r, c)) {
+            return Some(cov.clone());
         }
         let mut out = vec![0.0; p * p];
         if let Some(mix) = &self.errors.mixture {
@@ -117,6 +123,28 @@ impl UnmixOutput {
             &mut out,
         );
         Some(out)
+    }
+
+    /// Puts a refitted pixel in place: its reported planes (materials, then shade when
+    /// reported), their covariance (P × P, row-major), fit RMSE and non-zero count. Its
+    /// boundary flags, which describe the fit it replaces, are cleared.
+    pub fn replace_pixel(
+        &mut self,
+        r: usize,
+        c: usize,
+        reported: &[f64],
+        cov: Vec<f64>,
+        rmse: f64,
+        active: u8,
+    ) {
+        for (j, v) in reported.iter().enumerate() {
+            self.abundance[(r, c, j)] = *v as f32;
+        }
+        self.errors.overrides.insert((r, c), cov);
+        self.rmse[(r, c)] = rmse as f32;
+        self.active[(r, c)] = active;
+        self.boundary[(r, c)] = false;
+        self.boundary_columns[(r, c)] = 0;
     }
 
     /// The standard error of pixel (r, c) on plane j (NaN where not unmixed).

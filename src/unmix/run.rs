@@ -279,6 +279,7 @@ pub fn unmix_with<T: Real>(
             spreads: model.spreads.clone(),
             shade_column: model.shade,
             mixture,
+            overrides: Default::default(),
         },
         rmse: Array2::from_shape_vec((rows, cols), rm).expect("sized above"),
         active,

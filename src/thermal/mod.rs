@@ -10,6 +10,57 @@
 //! integrals (the band's calibration divides by the Sun seen through it, not by the Sun
 //! again). Pure arithmetic: no I/O.
 
+pub mod fit;
+pub mod plan;
+pub mod spots;
+pub mod stage;
+
+use serde::{Deserialize, Serialize};
+
+/// `--thermal`, recipe `thermal`.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum Mode {
+    /// Never fit emission.
+    Off,
+    /// One temperature, where the cube has a band beyond 2.5 µm and the Sun's distance is
+    /// known; otherwise off, with a note.
+    #[default]
+    Auto,
+    /// One temperature; refused where the cube cannot support it.
+    One,
+    /// Two temperatures (Dozier 1981); refused where the cube cannot support it.
+    Two,
+}
+
+impl Mode {
+    pub fn parse(s: &str) -> Result<Mode, String> {
+        match s {
+            "off" => Ok(Mode::Off),
+            "auto" => Ok(Mode::Auto),
+            "one" => Ok(Mode::One),
+            "two" => Ok(Mode::Two),
+            other => Err(format!("\"{other}\": expected off, auto, one or two")),
+        }
+    }
+
+    pub fn name(self) -> &'static str {
+        match self {
+            Mode::Off => "off",
+            Mode::Auto => "auto",
+            Mode::One => "one",
+            Mode::Two => "two",
+        }
+    }
+}
+
+/// The default temperature range of the search, K.
+pub const DEFAULT_RANGE_K: (f64, f64) = (300.0, 1800.0);
+/// A cube needs a band centred beyond this wavelength for thermal fitting, µm.
+pub const NEEDS_BAND_BEYOND_UM: f64 = 2.5;
+/// Stefan–Boltzmann constant, W m⁻² K⁻⁴ (CODATA 2018).
+pub const STEFAN_BOLTZMANN: f64 = 5.670_374_419e-8;
+
 use crate::bands::Band;
 use crate::library::resample::{band_value, support_um};
 use crate::library::solar::Sun;
@@ -31,6 +82,13 @@ const STEPS: usize = 2000;
 /// The I/F a unit area fraction (f = 1) at `t_k` adds to `band`: π ε d² ∫S B / ∫S F☉.
 /// `None` when the band's support leaves the solar table.
 pub fn band_iof(band: &Band, t_k: f64, sun_au: f64, emissivity: f64, sun: &Sun) -> Option<f64> {
+    let radiance = band_radiance(band, t_k)?;
+    let irradiance = crate::library::resample::band_irradiance(sun, band)?;
+    Some(std::f64::consts::PI * emissivity * sun_au * sun_au * radiance / irradiance)
+}
+
+/// The band's response-weighted Planck radiance ∫S B_λ(T) / ∫S, W m⁻² sr⁻¹ µm⁻¹.
+pub fn band_radiance(band: &Band, t_k: f64) -> Option<f64> {
     let (lo, hi) = support_um(band);
     let (lo, hi) = if hi > lo {
         (lo, hi)
@@ -41,9 +99,7 @@ pub fn band_iof(band: &Band, t_k: f64, sun_au: f64, emissivity: f64, sun: &Sun) 
         .map(|i| lo + (hi - lo) * i as f64 / STEPS as f64)
         .collect();
     let y: Vec<f64> = x.iter().map(|&w| planck_radiance(w, t_k)).collect();
-    let radiance = band_value(&x, &y, band)?;
-    let irradiance = crate::library::resample::band_irradiance(sun, band)?;
-    Some(std::f64::consts::PI * emissivity * sun_au * sun_au * radiance / irradiance)
+    band_value(&x, &y, band)
 }
 
 #[cfg(test)]

@@ -1,0 +1,311 @@
+//! The thermal stage: after the reflected-only unmixing, screen the pixels whose residual
+//! says something glows, fit those jointly with emission ([`super::fit`]), keep a fit
+//! only where it explains significantly more than the reflected light alone, and put its
+//! abundances, errors and fit quality in place of the reflected-only ones.
+//!
+//! - **Screen** (cheap, on every unmixed pixel): the reflected-only fit failed the
+//!   unexplained test, or its residual summed over the bands beyond 3 µm is positive and
+//!   significant, z = Σ r_b / (σ_p √n) > [`SCREEN_Z`] (one-sided; σ_p the unexplained
+//!   test's pixel noise, which already includes the cube's model error).
+//! - **Acceptance**: Δχ² = (RSS₀ − RSS₁)/σ_p² above the χ² critical value on 2K degrees of
+//!   freedom (f and T per component) at the false-alarm probability p divided by the
+//!   number of unmixed pixels (Bonferroni over the cube, so a scene without hot spots
+//!   reports none at probability about p), and every fₖ > 0.
+//! - **Columns**: the thermal column is written for I/F. After photometric normalisation
+//!   the reflected light was divided by the law's factor P but emission was not, so the
+//!   column of a pixel is t/P; a reflectance-factor cube is I/F ÷ cos i, so its column is
+//!   t/cos i; the radiance factor is I/F. Band weights scale it like every column.
+//!
+//! Pure arithmetic on arrays: no I/O.
+
+use ndarray::{Array2, Array3, ArrayView2, ArrayView3};
+use rayon::prelude::*;
+use statrs::distribution::{ChiSquared, ContinuousCDF};
+
+use super::fit::{covariance, fit_one, fit_two, Columns, Pixel};
+use super::Mode;
+use crate::unmix::{Model, UnmixOutput};
+
+/// The screen's one-sided threshold on the summed residual beyond 3 µm (p ≈ 0.01: a
+/// screen only chooses which pixels are fitted; acceptance decides).
+pub const SCREEN_Z: f64 = 2.326;
+/// Bands whose centre lies beyond this wavelength enter the screen, µm.
+pub const SCREEN_FROM_UM: f64 = 3.0;
+
+/// What the stage needs besides the unmixing output.
+pub struct Inputs<'a> {
+    /// The cube's samples (rows, cols, bands), unweighted, as unmixed (after any
+    /// photometric normalisation).
+    pub data: ArrayView3<'a, f32>,
+    /// The band weights.
+    pub weights: &'a [f64],
+    /// Band centres, µm.
+    pub centres_um: &'a [f64],
+    pub model: &'a Model,
+    /// Per pixel, the factor the thermal column is divided by (photometric law, cos i for
+    /// reflectance factor); `None`: 1.
+    pub divisor: Option<ArrayView2<'a, f32>>,
+    pub mode: Mode,
+    pub range_k: (f64, f64),
+    /// The σ given for standard errors, if any (weighted units).
+    pub noise: Option<f64>,
+}
+
+/// Per pixel results of the stage.
+#[derive(Debug, Clone)]
+pub struct ThermalOutput {
+    /// Plane names, then (rows, cols, planes): T, f, σ_T, σ_f (and the second pair for
+    /// `two`); NaN where not fitted.
+    pub names: Vec<String>,
+    pub planes: Array3<f32>,
+    /// Pixels whose joint fit was kept.
+    pub fitted: Array2<bool>,
+    /// Pixels the screen selected.
+    pub screened: usize,
+    /// Temperature components per pixel (1, or 2 for `two`).
+    pub components: usize,
+}
+
+/// The plane names of a mode.
+pub fn plane_names(components: usize) -> Vec<String> {
+    let mut v = Vec::new();
+    for k in 1..=components {
+        let s = if components == 1 {
+            String::new()
+        } else {
+            k.to_string()
+        };
+        v.push(format!("temperature{s}_k"));
+        v.push(format!("fraction{s}"));
+        v.push(format!("temperature{s}_k_stderr"));
+        v.push(format!("fraction{s}_stderr"));
+    }
+    v
+}
+
+/// One pixel's kept fit.
+struct Kept {
+    r: usize,
+    c: usize,
+    /// T, f, σ_T, σ_f per component.
+    values: Vec<f32>,
+    /// Reported planes and their covariance (P × P).
+    reported: Vec<f64>,
+    cov: Vec<f64>,
+    rmse: f64,
+    active: u8,
+    unexplained: bool,
+}
+
+/// Runs the stage, updating `out` in place for the kept pixels. `columns` makes the unit
+/// thermal columns t_b(T) (I/F, unweighted, over the search range); it is called only when
+/// the screen selects a pixel, so a cube without hot pixels does not pay for the table.
+pub fn run(
+    inp: &Inputs,
+    out: &mut UnmixOutput,
+    columns: impl FnOnce() -> Columns,
+) -> ThermalOutput {
+    let (rows, cols, nb) = inp.data.dim();
+    let components = match inp.mode {
+        Mode::Two => 2,
+        _ => 1,
+    };
+    let names = plane_names(components);
+    let mut planes = Array3::from_elem((rows, cols, names.len()), f32::NAN);
+    let mut fitted = Array2::from_elem((rows, cols), false);
+    let model = inp.model;
+    let m = model.columns();
+    let mat = model.material_columns();
+    let p = out.ids.len();
+    let report_shade = p > mat;
+    let summary = &out.misfit.summary;
+    let (s2, k2) = (
+        summary.noise_sigma * summary.noise_sigma,
+        summary.model_error * summary.model_error,
+    );
+    let tested = summary.tested.max(1);
+    let alpha = summary.false_alarm / tested as f64;
+    let accept = ChiSquared::new(2.0 * components as f64)
+        .expect("positive degrees of freedom")
+        .inverse_cdf(1.0 - alpha);
+    let ir: Vec<usize> = (0..nb)
+        .filter(|&b| inp.centres_um[b] > SCREEN_FROM_UM)
+        .collect();
+    // Per pixel: the weighted spectrum, the reflected-only raw abundances, its residual.
+    let candidates: Vec<(usize, usize)> = out
+        .unmixed
+        .indexed_iter()
+        .filter(|(_, ok)| **ok)
+        .map(|(rc, _)| rc)
+        .collect();
+    let pixel = |r: usize, c: usize| -> (Vec<f64>, Vec<f64>, f64) {
+        let y: Vec<f64> = (0..nb)
+            .map(|b| inp.data[(r, c, b)] as f64 * inp.weights[b])
+            .collect();
+        let shade = if report_shade {
+            out.abundance[(r, c, mat)] as f64
+        } else {
+            0.0
+        };
+        let sum = 1.0 - shade;
+        let mut a: Vec<f64> = (0..mat)
+            .map(|j| out.abundance[(r, c, j)] as f64 * sum)
+            .collect();
+        if model.shade {
+            a.push(shade);
+        }
+        let sbar = y.iter().sum::<f64>() / nb as f64;
+        (y, a, sbar)
+    };
+    let screened: Vec<(usize, usize)> = candidates
+        .par_iter()
+        .copied()
+        .filter(|&(r, c)| {
+            if out.misfit.flagged[(r, c)] {
+                return true;
+            }
+            if ir.is_empty() {
+                return false;
+            }
+            let (y, a, sbar) = pixel(r, c);
+            let var = s2 + k2 * sbar * sbar;
+            let sum: f64 = ir
+                .iter()
+                .map(|&b| y[b] - (0..m).map(|j| model.e[(b, j)] * a[j]).sum::<f64>())
+                .sum();
+            sum / (var * ir.len() as f64).sqrt() > SCREEN_Z
+        })
+        .collect();
+    let table = if screened.is_empty() {
+        None
+    } else {
+        Some(columns())
+    };
+    let kept: Vec<Kept> = screened
+        .par_iter()
+        .filter_map(|&(r, c)| {
+            let cols_t = table.as_ref()?;
+            let (y, a, sbar) = pixel(r, c);
+            let var = s2 + k2 * sbar * sbar;
+            // Allowed columns: the winning subset in subset mode, else all.
+            let mask: u32 = match &out.subset {
+                Some(s) if s[(r, c)] > 0 => model.subsets[s[(r, c)] as usize - 1],
+                _ => model.full_mask(),
+            };
+            let allowed: Vec<usize> = (0..m).filter(|j| mask & (1 << j) != 0).collect();
+            let mut e = Vec::with_capacity(allowed.len() * nb);
+            for &j in &allowed {
+                e.extend((0..nb).map(|b| model.e[(b, j)]));
+            }
+            let start: Vec<f64> = allowed.iter().map(|&j| a[j]).collect();
+            let rss0: f64 = (0..nb)
+                .map(|b| {
+                    let fit: f64 = (0..m).map(|j| model.e[(b, j)] * a[j]).sum();
+                    (y[b] - fit).powi(2)
+                })
+                .sum();
+            let divisor = inp.divisor.as_ref().map_or(1.0, |d| d[(r, c)] as f64);
+            if divisor.is_nan() || divisor <= 0.0 {
+                return None;
+            }
+            let scale: Vec<f64> = inp.weights.iter().map(|w| w / divisor).collect();
+            let px = Pixel {
+                y: &y,
+                e: &e,
+                m: allowed.len(),
+                start: &start,
+                thermal_scale: &scale,
+            };
+            let joint = match components {
+                2 => fit_two(&px, cols_t, inp.range_k),
+                _ => fit_one(&px, cols_t, inp.range_k),
+            }?;
+            let sol = &joint.solution;
+            let fs = &sol.x[allowed.len()..];
+            if (rss0 - sol.rss) / var <= accept || fs.iter().any(|f| *f <= 0.0) {
+                return None;
+            }
+            let k = sol.x.iter().filter(|v| **v > 0.0).count();
+            // ν: bands + the sum-to-one row − unknowns (the non-zero abundances, f and T).
+            let nu = (nb + 1).saturating_sub(k + components);
+            let sigma = inp
+                .noise
+                .unwrap_or_else(|| (sol.rss / nu.max(1) as f64).sqrt());
+            let cov = covariance(&px, cols_t, &joint, sigma)?;
+            let side = allowed.len() + 2 * components;
+            let mut values = Vec::with_capacity(4 * components);
+            for (kk, t) in joint.t_k.iter().enumerate() {
+                let fi = allowed.len() + kk;
+                let (ti, fcov) = (allowed.len() + 2 * kk + 1, allowed.len() + 2 * kk);
+                values.push(*t as f32);
+                values.push(sol.x[fi] as f32);
+                values.push(cov[ti * side + ti].max(0.0).sqrt() as f32);
+                values.push(cov[fcov * side + fcov].max(0.0).sqrt() as f32);
+            }
+            // The raw abundances over all columns, and their covariance (M × M).
+            let mut raw = vec![0.0; m];
+            for (ii, &j) in allowed.iter().enumerate() {
+                raw[j] = sol.x[ii];
+            }
+            let mut kmat = vec![0.0; m * m];
+            for (ii, &i) in allowed.iter().enumerate() {
+                for (jj, &j) in allowed.iter().enumerate() {
+                    kmat[i * m + j] = cov[ii * side + jj];
+                }
+            }
+            let sum: f64 = raw[..mat].iter().sum();
+            if sum.is_nan() || sum <= 0.0 {
+                return None;
+            }
+            let f: Vec<f64> = raw[..mat].iter().map(|v| v / sum).collect();
+            let shade = report_shade.then(|| if model.shade { raw[mat] } else { 1.0 - sum });
+            let mut reported = f.clone();
+            if let Some(s) = shade {
+                reported.push(s);
+            }
+            let mut pc = vec![0.0; p * p];
+            crate::unmix::errors::reported_covariance(
+                &kmat,
+                m,
+                model.shade,
+                &f,
+                1.0 / sum,
+                shade,
+                &mut pc,
+            );
+            let critical = ChiSquared::new(nu.max(1) as f64)
+                .expect("ν ≥ 1")
+                .inverse_cdf(1.0 - summary.false_alarm);
+            Some(Kept {
+                r,
+                c,
+                values,
+                reported,
+                cov: pc,
+                rmse: (sol.rss / nb as f64).sqrt(),
+                active: raw.iter().filter(|v| **v > 0.0).count() as u8,
+                unexplained: sol.rss / var > critical,
+            })
+        })
+        .collect();
+    for k in &kept {
+        fitted[(k.r, k.c)] = true;
+        for (i, v) in k.values.iter().enumerate() {
+            planes[(k.r, k.c, i)] = *v;
+        }
+        out.replace_pixel(k.r, k.c, &k.reported, k.cov.clone(), k.rmse, k.active);
+        if out.misfit.flagged[(k.r, k.c)] && !k.unexplained {
+            out.misfit.summary.flagged -= 1;
+        } else if !out.misfit.flagged[(k.r, k.c)] && k.unexplained {
+            out.misfit.summary.flagged += 1;
+        }
+        out.misfit.flagged[(k.r, k.c)] = k.unexplained;
+    }
+    ThermalOutput {
+        names,
+        planes,
+        fitted,
+        screened: screened.len(),
+        components,
+    }
+}
