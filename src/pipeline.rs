@@ -124,9 +124,22 @@ pub fn prepare(
         sun_distance_au: r.sun_distance_au,
         law,
     };
+    let facts = crate::thermal::plan::CubeFacts {
+        bands: &cube.info.bands,
+        quantity: cube.info.quantity,
+        sun_distance_au: cube.info.about.sun_distance_au,
+        incidence: cube
+            .backplanes
+            .get(&cube::Backplane::Incidence)
+            .map(|a| a.view()),
+        emission: cube
+            .backplanes
+            .get(&cube::Backplane::Emission)
+            .map(|a| a.view()),
+    };
     let thermal = match crate::thermal::plan::resolve(
         &request,
-        &cube,
+        &facts,
         crate::library::solar::Sun::embedded(),
     )
     .map_err(|e| anyhow::anyhow!("{}: {e}", path.display()))?
@@ -309,7 +322,7 @@ pub fn run_thermal(
     };
     let sun = crate::library::solar::Sun::embedded();
     Some(crate::thermal::stage::run(&inputs, out, || {
-        plan.columns(&p.cube, sun)
+        plan.columns(&p.cube.info.bands, sun)
     }))
 }
 

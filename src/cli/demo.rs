@@ -59,6 +59,15 @@ pub struct Args {
     /// Number of hot-spot pixels (thermal emission at 3–5 µm) on the active vent.
     #[arg(long, value_name = "N", default_value_t = 0)]
     hot_spots: usize,
+    /// Hot-spot temperatures, drawn uniformly in MIN-MAX, K.
+    #[arg(long, value_name = "MIN-MAX", default_value = "550-850", value_parser = parse_pair)]
+    hot_temperature: (f64, f64),
+    /// Hot area fractions of a hot-spot pixel, drawn log-uniformly in MIN-MAX.
+    #[arg(long, value_name = "MIN-MAX", default_value = "0.0001-0.001", value_parser = parse_pair)]
+    hot_fraction: (f64, f64),
+    /// The Sun's distance in AU (written as SUNDIST). Default: Brimveil's, 4.8.
+    #[arg(long, value_name = "AU", default_value_t = thiomap::demo::SUN_DISTANCE_AU, allow_hyphen_values = true)]
+    sun_distance: f64,
     /// Seed of all randomness; the same seed gives byte-identical files.
     #[arg(long, value_name = "N", default_value_t = 1)]
     seed: u64,
@@ -141,6 +150,9 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
         snr: a.snr,
         mismatch: a.mismatch,
         hot_spots: a.hot_spots,
+        hot_temperature_k: a.hot_temperature,
+        hot_fraction: a.hot_fraction,
+        sun_distance_au: a.sun_distance,
         seed: a.seed,
         law: if a.law == "lambert" {
             Law::Lambert
@@ -163,7 +175,8 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     let scene = generate(&params, &library, &bands, &a.bands)?;
     let command = format!(
         "thiomap demo --out {} --kind {} --size {}x{} --bands {} --snr {} --mismatch {} \
-         --hot-spots {} --seed {} --law {} --sun {},{} --observer {},{}",
+         --hot-spots {} --hot-temperature {}-{} --hot-fraction {}-{} --sun-distance {} \
+         --seed {} --law {} --sun {},{} --observer {},{}",
         a.out.display(),
         a.kind,
         a.size.0,
@@ -172,6 +185,11 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
         a.snr,
         a.mismatch,
         a.hot_spots,
+        a.hot_temperature.0,
+        a.hot_temperature.1,
+        a.hot_fraction.0,
+        a.hot_fraction.1,
+        a.sun_distance,
         a.seed,
         a.law,
         a.sun.0,
@@ -204,4 +222,14 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
         }
     );
     Ok(ExitCode::SUCCESS)
+}
+
+/// `MIN-MAX` of two numbers (their order is checked with the scene).
+fn parse_pair(s: &str) -> Result<(f64, f64), String> {
+    let bad = || format!("\"{s}\": expected MIN-MAX, e.g. 550-850");
+    let (a, b) = s.split_once('-').ok_or_else(bad)?;
+    Ok((
+        a.trim().parse().map_err(|_| bad())?,
+        b.trim().parse().map_err(|_| bad())?,
+    ))
 }

@@ -3,7 +3,8 @@
 //!
 //! Truth planes: the primary array holds the abundances (axes x, y, member; one plane per
 //! id in `truth.json` `members`, named by PLANEn cards; NaN on sky); image extensions
-//! UNITS (int16 label, 0 = sky), CORE (int16 0/1) and HOTSPOT (int16 0/1). Group truth is
+//! UNITS (int16 label, 0 = sky), CORE (int16 0/1), HOTSPOT (int16 0/1) and HOTTHERM (f32,
+//! planes temperature K and hot area fraction per hot pixel, NaN elsewhere). Group truth is
 //! not stored: sum the member planes of each group listed in `truth.json`.
 
 use std::path::{Path, PathBuf};
@@ -167,10 +168,10 @@ pub fn write_scene(
             "snr_reference_um": 0.55,
             "mismatch": params.mismatch,
             "hot_spots": params.hot_spots,
-            "hot_spot_temperature_range_k": [super::HOT_SPOT_K.0, super::HOT_SPOT_K.1],
-            "hot_spot_fraction_range": [super::HOT_SPOT_FRACTION.0, super::HOT_SPOT_FRACTION.1],
+            "hot_spot_temperature_range_k": [params.hot_temperature_k.0, params.hot_temperature_k.1],
+            "hot_spot_fraction_range": [params.hot_fraction.0, params.hot_fraction.1],
             "hot_spot_emissivity": 1.0,
-            "sun_distance_au": super::SUN_DISTANCE_AU,
+            "sun_distance_au": params.sun_distance_au,
             "seed": params.seed,
             "photometric_law": params.law.name(),
             "topographic_shading_depth": super::SHADING_DEPTH,
@@ -223,10 +224,25 @@ fn write_truth_planes(path: &Path, scene: &Scene) -> Result<(), WriteError> {
             cards: vec![Card::new("EXTNAME", Value::Text(name.into()), "")],
         })
     }
+    // Each hot pixel's temperature (K) and hot area fraction, NaN elsewhere.
+    let (rows, cols) = t.labels.dim();
+    let mut therm = ndarray::Array3::<f32>::from_elem((rows, cols, 2), f32::NAN);
+    for h in &t.hot_spots {
+        therm[(h.row, h.col, 0)] = h.temperature_k as f32;
+        therm[(h.row, h.col, 1)] = h.fraction as f32;
+    }
     let extensions = [
         ext("UNITS", &t.labels),
         ext("CORE", &core),
         ext("HOTSPOT", &hot),
+        Extension::Image(ImageHdu {
+            data: ImageData::Cube(therm.view()),
+            cards: vec![
+                Card::new("EXTNAME", Value::Text("HOTTHERM".into()), ""),
+                Card::new("PLANE1", Value::Text("temperature_k".into()), ""),
+                Card::new("PLANE2", Value::Text("fraction".into()), ""),
+            ],
+        }),
     ];
     let primary = ImageHdu {
         data: ImageData::Cube(t.abundance.view()),

@@ -27,9 +27,10 @@
 //!   1 + m·sin(2π λ / Λ + φ) with Λ in 1.5–4 µm and φ seeded per member before resampling;
 //!   the truth stays over the library's own members.
 //! - **Hot spots** (optional): pixels on the active vent's floor gain thermal emission in
-//!   I/F units, f π ε d² ∫S B_λ(T) / ∫S F☉ ([`crate::thermal`]), ε = 1, with T drawn in
-//!   550–850 K and the hot area fraction f log-uniform in 10⁻⁴–10⁻³, at the Sun's distance
-//!   [`SUN_DISTANCE_AU`] (recorded as `SUNDIST`); the truth lists each spot's T and f.
+//!   I/F units, f π ε d² ∫S B_λ(T) / ∫S F☉ ([`crate::thermal`]), ε = 1, with T drawn
+//!   uniformly in a range (default 550–850 K) and the hot area fraction f log-uniformly in
+//!   another (default 10⁻⁴–10⁻³), at the Sun's distance (default [`SUN_DISTANCE_AU`],
+//!   recorded as `SUNDIST`); the truth lists each spot's T and f.
 //!
 //! Randomness comes from one ChaCha8 stream seeded by `seed`, drawn in a fixed order, so
 //! reruns with the same seed are byte-identical.
@@ -66,6 +67,12 @@ pub struct SceneParams {
     /// Library mismatch amplitude (0 = off; 0.03 = ±3 %).
     pub mismatch: f64,
     pub hot_spots: usize,
+    /// Hot-spot temperatures are drawn uniformly in this range, K.
+    pub hot_temperature_k: (f64, f64),
+    /// Hot area fractions are drawn log-uniformly in this range.
+    pub hot_fraction: (f64, f64),
+    /// The Sun's distance, AU (recorded as `SUNDIST`).
+    pub sun_distance_au: f64,
     pub seed: u64,
     pub law: Law,
     /// Sub-solar point (latitude, longitude), degrees.
@@ -85,6 +92,9 @@ impl Default for SceneParams {
             snr: 200.0,
             mismatch: 0.0,
             hot_spots: 0,
+            hot_temperature_k: HOT_SPOT_K,
+            hot_fraction: HOT_SPOT_FRACTION,
+            sun_distance_au: SUN_DISTANCE_AU,
             seed: 1,
             law: Law::Lambert,
             sun: (0.0, 30.0),
@@ -111,6 +121,12 @@ pub enum DemoError {
     Mismatch(f64),
     #[error("--hot-spots {0}: at most 50")]
     HotSpots(usize),
+    #[error("--hot-temperature {0}-{1}: the range must run from a lower to a higher temperature above 0 K")]
+    HotTemperature(f64, f64),
+    #[error("--hot-fraction {0}-{1}: the range must run upwards within (0, 1]")]
+    HotFraction(f64, f64),
+    #[error("--sun-distance {0}: the Sun's distance must be greater than 0 AU")]
+    SunDistance(f64),
     #[error("{0}")]
     Coverage(#[from] OutOfCoverage),
     #[error("the active vent is not in sunlight in this view, so no hot spot can be placed")]
@@ -138,6 +154,17 @@ impl SceneParams {
         }
         if self.hot_spots > 50 {
             return Err(DemoError::HotSpots(self.hot_spots));
+        }
+        let (t0, t1) = self.hot_temperature_k;
+        if !(t0.is_finite() && t1.is_finite() && t0 > 0.0 && t1 >= t0) {
+            return Err(DemoError::HotTemperature(t0, t1));
+        }
+        let (f0, f1) = self.hot_fraction;
+        if !(f0 > 0.0 && f1 >= f0 && f1 <= 1.0) {
+            return Err(DemoError::HotFraction(f0, f1));
+        }
+        if !(self.sun_distance_au.is_finite() && self.sun_distance_au > 0.0) {
+            return Err(DemoError::SunDistance(self.sun_distance_au));
         }
         Ok(())
     }
@@ -410,11 +437,12 @@ pub fn generate(
             let k = rng.gen_range(0..candidates.len());
             let (_, r, c) = candidates.swap_remove(k);
             hot[(r, c)] = true;
-            let t_k = HOT_SPOT_K.0 + (HOT_SPOT_K.1 - HOT_SPOT_K.0) * rng.gen::<f64>();
-            let (lo, hi) = (HOT_SPOT_FRACTION.0.ln(), HOT_SPOT_FRACTION.1.ln());
+            let (t0, t1) = p.hot_temperature_k;
+            let t_k = t0 + (t1 - t0) * rng.gen::<f64>();
+            let (lo, hi) = (p.hot_fraction.0.ln(), p.hot_fraction.1.ln());
             let fraction = (lo + (hi - lo) * rng.gen::<f64>()).exp();
             for (b, band) in bands.bands().iter().enumerate() {
-                let unit = crate::thermal::band_iof(band, t_k, SUN_DISTANCE_AU, 1.0, sun)
+                let unit = crate::thermal::band_iof(band, t_k, p.sun_distance_au, 1.0, sun)
                     .ok_or_else(|| OutOfCoverage::solar(band, b, sun))?;
                 signal[(r, c, b)] += fraction * unit;
             }
@@ -493,7 +521,7 @@ pub fn generate(
                 target: Some("Brimveil (fictional; synthetic scene)".into()),
                 time: None,
                 instrument: Some(instrument.to_string()),
-                sun_distance_au: Some(SUN_DISTANCE_AU),
+                sun_distance_au: Some(p.sun_distance_au),
                 extra: Default::default(),
             },
         },

@@ -34,10 +34,25 @@ pub fn own_wavelengths_csv(
 
 /// The table of the library resampled to a band set.
 pub fn resampled_csv(lib: &Library, r: &Resampled) -> Result<Vec<u8>, csv::Error> {
-    let mut w = writer(lib)?;
+    resampled_csv_with(lib, r, &[])
+}
+
+/// [`resampled_csv`] with extra columns after the members (name, one value per band),
+/// written with seven significant digits.
+pub fn resampled_csv_with(
+    lib: &Library,
+    r: &Resampled,
+    extra: &[(String, Vec<f64>)],
+) -> Result<Vec<u8>, csv::Error> {
+    let mut w = csv::Writer::from_writer(Vec::new());
+    let mut header = vec!["wavelength_um".to_string()];
+    header.extend(lib.members.iter().map(|m| m.id.clone()));
+    header.extend(extra.iter().map(|(n, _)| n.clone()));
+    w.write_record(&header)?;
     for (i, c) in r.centres_um.iter().enumerate() {
         let mut row = vec![format!("{c}")];
         row.extend(r.matrix.row(i).iter().map(|v| format!("{v:.6}")));
+        row.extend(extra.iter().map(|(_, v)| format!("{:.6e}", v[i])));
         w.write_record(&row)?;
     }
     finish(w)

@@ -26,7 +26,7 @@
 use nalgebra::{DMatrix, DVector};
 
 /// The grid step of the one-temperature search, K.
-pub const GRID_STEP_K: f64 = 20.0;
+pub const GRID_STEP_K: f64 = 50.0;
 /// The grid step of the two-temperature search, K.
 pub const GRID_STEP_TWO_K: f64 = 60.0;
 /// Golden-section searches stop when the bracket is this narrow, K.
@@ -113,7 +113,8 @@ impl Columns {
     }
 }
 
-/// One pixel's problem: the weighted spectrum and the model columns allowed for it.
+/// One pixel's problem: the weighted spectrum and the model columns allowed for it, with
+/// the products of the reflectance columns computed once (they do not change with T).
 pub struct Pixel<'a> {
     /// y, weighted (bands).
     pub y: &'a [f64],
@@ -126,6 +127,41 @@ pub struct Pixel<'a> {
     /// Per band, the factor the unit thermal columns are multiplied by for this pixel
     /// (band weight over the photometric divisor).
     pub thermal_scale: &'a [f64],
+    /// EᵀE (m × m, row-major) and Eᵀy.
+    gram: Vec<f64>,
+    ety: Vec<f64>,
+}
+
+impl<'a> Pixel<'a> {
+    pub fn new(
+        y: &'a [f64],
+        e: &'a [f64],
+        m: usize,
+        start: &'a [f64],
+        thermal_scale: &'a [f64],
+    ) -> Pixel<'a> {
+        let nb = y.len();
+        let col = |j: usize| &e[j * nb..(j + 1) * nb];
+        let dot = |a: &[f64], b: &[f64]| a.iter().zip(b).map(|(x, y)| x * y).sum::<f64>();
+        let mut gram = vec![0.0; m * m];
+        for i in 0..m {
+            for j in i..m {
+                let v = dot(col(i), col(j));
+                gram[i * m + j] = v;
+                gram[j * m + i] = v;
+            }
+        }
+        let ety = (0..m).map(|j| dot(col(j), y)).collect();
+        Pixel {
+            y,
+            e,
+            m,
+            start,
+            thermal_scale,
+            gram,
+            ety,
+        }
+    }
 }
 
 /// A solved fixed-temperature problem.
@@ -152,7 +188,11 @@ pub fn solve_fixed(px: &Pixel, thermal: &[&[f64]]) -> Option<Solution> {
     // Column scales: unit norm (a zero column, the shade, keeps 1).
     let d: Vec<f64> = (0..n)
         .map(|j| {
-            let s = col(j).iter().map(|v| v * v).sum::<f64>().sqrt();
+            let s = if j < m {
+                px.gram[j * m + j].sqrt()
+            } else {
+                col(j).iter().map(|v| v * v).sum::<f64>().sqrt()
+            };
             if s > 0.0 && s.is_finite() {
                 s
             } else {
@@ -162,11 +202,15 @@ pub fn solve_fixed(px: &Pixel, thermal: &[&[f64]]) -> Option<Solution> {
         .collect();
     let mut g = DMatrix::<f64>::zeros(n, n);
     let mut bv = DVector::<f64>::zeros(n);
+    let dot = |a: &[f64], b: &[f64]| a.iter().zip(b).map(|(x, y)| x * y).sum::<f64>();
     for i in 0..n {
-        let ci = col(i);
-        bv[i] = ci.iter().zip(px.y).map(|(a, b)| a * b).sum::<f64>() / d[i];
+        bv[i] = if i < m { px.ety[i] } else { dot(col(i), px.y) } / d[i];
         for j in i..n {
-            let v = ci.iter().zip(col(j)).map(|(a, b)| a * b).sum::<f64>() / (d[i] * d[j]);
+            let v = if j < m {
+                px.gram[i * m + j]
+            } else {
+                dot(col(i), col(j))
+            } / (d[i] * d[j]);
             g[(i, j)] = v;
             g[(j, i)] = v;
         }
@@ -313,27 +357,34 @@ fn rss_at(px: &Pixel, cols: &Columns, t: &[f64], buf: &mut [Vec<f64>]) -> Option
     solve_fixed(px, &refs)
 }
 
-/// Fits one temperature over `range_k`.
+/// Fits one temperature over `range_k`: [`grid_one`], then [`refine_one`].
 pub fn fit_one(px: &Pixel, cols: &Columns, range_k: (f64, f64)) -> Option<Joint> {
+    let (t, _) = grid_one(px, cols, range_k)?;
+    refine_one(px, cols, range_k, t)
+}
+
+/// The best temperature of the grid of [`GRID_STEP_K`] over `range_k`, and its residual.
+pub fn grid_one(px: &Pixel, cols: &Columns, range_k: (f64, f64)) -> Option<(f64, f64)> {
     let mut buf = vec![vec![0.0; cols.bands()]];
     let steps = ((range_k.1 - range_k.0) / GRID_STEP_K).ceil().max(1.0) as usize;
-    let grid: Vec<f64> = (0..=steps)
-        .map(|i| (range_k.0 + GRID_STEP_K * i as f64).min(range_k.1))
-        .collect();
-    let mut best = (f64::INFINITY, range_k.0);
-    for &t in &grid {
+    let mut best = (range_k.0, f64::INFINITY);
+    for i in 0..=steps {
+        let t = (range_k.0 + GRID_STEP_K * i as f64).min(range_k.1);
         if let Some(s) = rss_at(px, cols, &[t], &mut buf) {
-            if s.rss < best.0 {
-                best = (s.rss, t);
+            if s.rss < best.1 {
+                best = (t, s.rss);
             }
         }
     }
-    if !best.0.is_finite() {
-        return None;
-    }
+    best.1.is_finite().then_some(best)
+}
+
+/// Golden-section refinement within one grid step of `t_grid`.
+pub fn refine_one(px: &Pixel, cols: &Columns, range_k: (f64, f64), t_grid: f64) -> Option<Joint> {
+    let mut buf = vec![vec![0.0; cols.bands()]];
     let (lo, hi) = (
-        (best.1 - GRID_STEP_K).max(range_k.0),
-        (best.1 + GRID_STEP_K).min(range_k.1),
+        (t_grid - GRID_STEP_K).max(range_k.0),
+        (t_grid + GRID_STEP_K).min(range_k.1),
     );
     let (t, _) = golden(lo, hi, T_TOLERANCE_K, |t| {
         rss_at(px, cols, &[t], &mut buf).map_or(f64::INFINITY, |s| s.rss)
@@ -521,13 +572,7 @@ mod tests {
     fn a_noise_free_pixel_gives_back_its_temperature_fraction_and_abundances() {
         let (e, y, cols) = problem(812.0, 0.02);
         let start = [0.4, 0.4, 0.2];
-        let px = Pixel {
-            y: &y,
-            e: &e,
-            m: 3,
-            start: &start,
-            thermal_scale: &[1.0; 20],
-        };
+        let px = Pixel::new(&y, &e, 3, &start, &[1.0; 20]);
         let j = fit_one(&px, &cols, (300.0, 1800.0)).unwrap();
         assert!((j.t_k[0] - 812.0).abs() < 0.2, "{:?}", j.t_k);
         let x = &j.solution.x;
@@ -545,13 +590,7 @@ mod tests {
         // Against a brute-force check: no feasible direction lowers the residual.
         let (e, y, cols) = problem(650.0, 0.01);
         let start = [1.0, 0.0, 0.0];
-        let px = Pixel {
-            y: &y,
-            e: &e,
-            m: 3,
-            start: &start,
-            thermal_scale: &[1.0; 20],
-        };
+        let px = Pixel::new(&y, &e, 3, &start, &[1.0; 20]);
         let mut t = vec![0.0; 20];
         cols.at(900.0, &mut t, None); // the wrong temperature: a residual remains
         let s = solve_fixed(&px, &[&t]).unwrap();
@@ -587,13 +626,7 @@ mod tests {
             *v += 0.001 * planckish(b, 1400.0);
         }
         let start = [0.4, 0.4, 0.2];
-        let px = Pixel {
-            y: &y,
-            e: &e,
-            m: 3,
-            start: &start,
-            thermal_scale: &[1.0; 20],
-        };
+        let px = Pixel::new(&y, &e, 3, &start, &[1.0; 20]);
         let j = fit_two(&px, &cols, (300.0, 1800.0)).unwrap();
         assert!((j.t_k[0] - 500.0).abs() < 2.0, "{:?}", j.t_k);
         assert!((j.t_k[1] - 1400.0).abs() < 10.0, "{:?}", j.t_k);

@@ -77,7 +77,9 @@ pub fn planck_radiance(wl_um: f64, t_k: f64) -> f64 {
 }
 
 /// Samples across a band's support for the Planck integral.
-const STEPS: usize = 2000;
+/// (A band's Gaussian over ±3σ on the smooth Planck curve: 400 trapezoids agree with an
+/// independent integration to 3 × 10⁻⁵, `tests/external/check_thermal.py`.)
+const STEPS: usize = 400;
 
 /// The I/F a unit area fraction (f = 1) at `t_k` adds to `band`: π ε d² ∫S B / ∫S F☉.
 /// `None` when the band's support leaves the solar table.
@@ -89,6 +91,64 @@ pub fn band_iof(band: &Band, t_k: f64, sun_au: f64, emissivity: f64, sun: &Sun) 
 
 /// The band's response-weighted Planck radiance ∫S B_λ(T) / ∫S, W m⁻² sr⁻¹ µm⁻¹.
 pub fn band_radiance(band: &Band, t_k: f64) -> Option<f64> {
+    Quadrature::of(band).radiance(t_k)
+}
+
+/// A band's response as nodes and weights for the Planck integral, made once and used at
+/// many temperatures (the thermal columns' table): a Gaussian by the trapezoid rule over
+/// its ±3σ support in [`STEPS`] steps, a point band at its centre; a tabulated response
+/// goes through the general resampling at each temperature.
+pub enum Quadrature<'a> {
+    Nodes { wl: Vec<f64>, w: Vec<f64> },
+    General(&'a Band),
+}
+
+impl<'a> Quadrature<'a> {
+    pub fn of(band: &'a Band) -> Quadrature<'a> {
+        use crate::bands::Response;
+        match &band.response {
+            Response::Point => Quadrature::Nodes {
+                wl: vec![band.centre_um],
+                w: vec![1.0],
+            },
+            Response::Gaussian { fwhm_um } => {
+                let sigma = fwhm_um / (2.0 * (2.0 * std::f64::consts::LN_2).sqrt());
+                let (lo, hi) = support_um(band);
+                let wl: Vec<f64> = (0..=STEPS)
+                    .map(|i| lo + (hi - lo) * i as f64 / STEPS as f64)
+                    .collect();
+                let mut w: Vec<f64> = wl
+                    .iter()
+                    .enumerate()
+                    .map(|(i, x)| {
+                        let end = if i == 0 || i == STEPS { 0.5 } else { 1.0 };
+                        end * (-0.5 * ((x - band.centre_um) / sigma).powi(2)).exp()
+                    })
+                    .collect();
+                let s: f64 = w.iter().sum();
+                w.iter_mut().for_each(|v| *v /= s);
+                Quadrature::Nodes { wl, w }
+            }
+            Response::Tabulated { .. } => Quadrature::General(band),
+        }
+    }
+
+    /// ∫S B_λ(T) / ∫S.
+    pub fn radiance(&self, t_k: f64) -> Option<f64> {
+        match self {
+            Quadrature::Nodes { wl, w } => Some(
+                wl.iter()
+                    .zip(w)
+                    .map(|(x, w)| w * planck_radiance(*x, t_k))
+                    .sum(),
+            ),
+            Quadrature::General(band) => general_radiance(band, t_k),
+        }
+    }
+}
+
+/// [`band_radiance`] through the general resampling (any response).
+fn general_radiance(band: &Band, t_k: f64) -> Option<f64> {
     let (lo, hi) = support_um(band);
     let (lo, hi) = if hi > lo {
         (lo, hi)
@@ -107,11 +167,29 @@ mod tests {
     use super::*;
 
     #[test]
-    fn planck_radiance_matches_a_hand_value_and_wien() {
-        // B_λ(4 µm, 650 K) = c1L / λ⁵ / (e^{c2/λT} − 1) = 461.0 W m⁻² sr⁻¹ µm⁻¹ (worked by hand
-        // from the CODATA constants).
-        let b = planck_radiance(4.0, 650.0);
-        assert!((b - 461.0).abs() < 0.5, "{b}");
+    fn planck_radiance_matches_codata_check_values() {
+        // B_λ from the CODATA 2018 h, c, k (the values scipy.constants carries), in
+        // W m⁻² sr⁻¹ µm⁻¹, to 10⁻⁵ relative.
+        for (wl, t, want) in [
+            (4.0, 650.0, 461.388),
+            (2.0, 650.0, 58.1064),
+            (4.0, 1000.0, 3277.66),
+            (10.0, 300.0, 9.92403),
+        ] {
+            let b = planck_radiance(wl, t);
+            assert!(
+                (b / want - 1.0).abs() < 1e-5,
+                "B({wl} µm, {t} K) = {b}, want {want}"
+            );
+        }
+        // Wien's displacement constant b = 2897.771955 µm K (CODATA 2018), by locating the
+        // maximum numerically (golden-section search on −B).
+        let (peak, _) = fit::golden(1.0, 6.0, 1e-9, |wl| -planck_radiance(wl, 1000.0));
+        assert!((peak * 1000.0 / 2897.771955 - 1.0).abs() < 1e-6, "{peak}");
+    }
+
+    #[test]
+    fn planck_radiance_matches_wien_and_stefan_boltzmann() {
         // Wien's displacement law, λ_max T = 2897.77 µm K (CODATA 2018).
         let t = 1000.0;
         let peak = (1..6000)

@@ -3,14 +3,23 @@
 //! in), checked before anything is written, and the per-pixel divisor of the thermal
 //! column (see [`super::stage`]). Pure: no I/O.
 
-use ndarray::Array2;
+use ndarray::{Array2, ArrayView2};
 
 use super::fit::Columns;
 use super::{Mode, NEEDS_BAND_BEYOND_UM};
-use crate::bands::Quantity;
-use crate::cube::{Backplane, Cube};
+use crate::bands::{BandTable, Quantity};
 use crate::library::solar::Sun;
 use crate::photometry::Law;
+
+/// What the plan needs of a cube: its bands, quantity, stated sun distance and the
+/// incidence and emission backplanes (degrees) when it has them.
+pub struct CubeFacts<'a> {
+    pub bands: &'a BandTable,
+    pub quantity: Quantity,
+    pub sun_distance_au: Option<f64>,
+    pub incidence: Option<ArrayView2<'a, f32>>,
+    pub emission: Option<ArrayView2<'a, f32>>,
+}
 
 /// A resolved thermal fit.
 #[derive(Debug, Clone)]
@@ -45,13 +54,13 @@ pub struct Request {
     pub law: Option<Law>,
 }
 
-/// Resolves `req` for `cube` (after band selection and normalisation).
-pub fn resolve(req: &Request, cube: &Cube, sun: &Sun) -> Result<Resolved, String> {
+/// Resolves `req` for a cube (after band selection and normalisation).
+pub fn resolve(req: &Request, cube: &CubeFacts, sun: &Sun) -> Result<Resolved, String> {
     if req.mode == Mode::Off {
         return Ok(Resolved::Off(None));
     }
     let forced = req.mode != Mode::Auto;
-    let bands = cube.info.bands.bands();
+    let bands = cube.bands.bands();
     let longest = bands
         .iter()
         .map(|b| b.centre_um)
@@ -67,7 +76,7 @@ pub fn resolve(req: &Request, cube: &Cube, sun: &Sun) -> Result<Resolved, String
             Ok(Resolved::Off(None))
         };
     }
-    let (sun_au, source) = match (req.sun_distance_au, cube.info.about.sun_distance_au) {
+    let (sun_au, source) = match (req.sun_distance_au, cube.sun_distance_au) {
         (Some(d), _) => (d, "recipe"),
         (None, Some(d)) => (d, "cube"),
         (None, None) => {
@@ -97,15 +106,14 @@ pub fn resolve(req: &Request, cube: &Cube, sun: &Sun) -> Result<Resolved, String
             ));
         }
     }
-    let plane = |b: Backplane| cube.backplanes.get(&b);
     let law_factor = |need_cos_i: bool| -> Result<Option<Array2<f32>>, String> {
         if req.law.is_none() && !need_cos_i {
             return Ok(None);
         }
-        let inc = plane(Backplane::Incidence).ok_or_else(|| {
+        let inc = cube.incidence.as_ref().ok_or_else(|| {
             "the thermal column of this cube needs the incidence backplane".to_string()
         })?;
-        let emi = plane(Backplane::Emission);
+        let emi = cube.emission.as_ref();
         Ok(Some(Array2::from_shape_fn(inc.dim(), |(r, c)| {
             let mu0 = (inc[(r, c)] as f64).to_radians().cos();
             let mu = emi.map_or(1.0, |e| (e[(r, c)] as f64).to_radians().cos());
@@ -113,7 +121,7 @@ pub fn resolve(req: &Request, cube: &Cube, sun: &Sun) -> Result<Resolved, String
             (p * if need_cos_i { mu0 } else { 1.0 }) as f32
         })))
     };
-    let (divisor, note) = match cube.info.quantity {
+    let (divisor, note) = match cube.quantity {
         Quantity::IOverF | Quantity::RadianceFactor => (
             law_factor(false)?,
             "I/F (radiance factor alike)".to_string(),
@@ -150,9 +158,9 @@ pub fn resolve(req: &Request, cube: &Cube, sun: &Sun) -> Result<Resolved, String
 }
 
 impl Plan {
-    /// The unit thermal columns of `cube`'s bands over the plan's range (I/F, unweighted).
-    pub fn columns(&self, cube: &Cube, sun: &Sun) -> Columns {
-        let bands = cube.info.bands.bands();
+    /// The unit thermal columns of `bands` over the plan's range (I/F, unweighted).
+    pub fn columns(&self, bands: &BandTable, sun: &Sun) -> Columns {
+        let bands = bands.bands();
         let k: Vec<f64> = bands
             .iter()
             .map(|b| {
@@ -160,8 +168,9 @@ impl Plan {
                 std::f64::consts::PI * self.emissivity * self.sun_distance_au.powi(2) / f
             })
             .collect();
+        let quad: Vec<super::Quadrature> = bands.iter().map(super::Quadrature::of).collect();
         Columns::tabulate(self.range_k, bands.len(), |b, t| {
-            super::band_radiance(&bands[b], t).unwrap_or(0.0) * k[b]
+            quad[b].radiance(t).unwrap_or(0.0) * k[b]
         })
     }
 }

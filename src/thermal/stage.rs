@@ -5,12 +5,14 @@
 //!
 //! - **Screen** (cheap, on every unmixed pixel): the reflected-only fit failed the
 //!   unexplained test, or its residual summed over the bands beyond 3 µm is positive and
-//!   significant, z = Σ r_b / (σ_p √n) > [`SCREEN_Z`] (one-sided; σ_p the unexplained
+//!   significant, z = Σ r_b / (σ_p √n) > [`SCREEN_Z`] (one-sided, p ≈ 0.001; σ_p the unexplained
 //!   test's pixel noise, which already includes the cube's model error).
-//! - **Acceptance**: Δχ² = (RSS₀ − RSS₁)/σ_p² above the χ² critical value on 2K degrees of
-//!   freedom (f and T per component) at the false-alarm probability p divided by the
-//!   number of unmixed pixels (Bonferroni over the cube, so a scene without hot spots
-//!   reports none at probability about p), and every fₖ > 0.
+//! - **Acceptance**: the one-temperature fit's Δχ² = (RSS₀ − RSS₁)/σ_p² above the χ²
+//!   critical value on 2 degrees of freedom (f and T) at the false-alarm probability p
+//!   divided by the number of tested pixels (Bonferroni over the cube, so a scene without
+//!   hot spots reports none at probability about p), and f > 0. Under `two` a second
+//!   component is kept where both fractions are positive and it lowers χ² by more than
+//!   the critical value on 2 degrees of freedom at p.
 //! - **Columns**: the thermal column is written for I/F. After photometric normalisation
 //!   the reflected light was divided by the law's factor P but emission was not, so the
 //!   column of a pixel is t/P; a reflectance-factor cube is I/F ÷ cos i, so its column is
@@ -22,13 +24,17 @@ use ndarray::{Array2, Array3, ArrayView2, ArrayView3};
 use rayon::prelude::*;
 use statrs::distribution::{ChiSquared, ContinuousCDF};
 
-use super::fit::{covariance, fit_one, fit_two, Columns, Pixel};
+use super::fit::{covariance, fit_two, grid_one, refine_one, Columns, Pixel};
 use super::Mode;
 use crate::unmix::{Model, UnmixOutput};
 
-/// The screen's one-sided threshold on the summed residual beyond 3 µm (p ≈ 0.01: a
-/// screen only chooses which pixels are fitted; acceptance decides).
-pub const SCREEN_Z: f64 = 2.326;
+/// The screen's one-sided threshold on the summed residual beyond 3 µm (p ≈ 0.001, as the
+/// unexplained test's default: a screen only chooses which pixels are fitted; acceptance
+/// decides).
+pub const SCREEN_Z: f64 = 3.090;
+/// A one-temperature fit whose grid optimum explains less than this share of the
+/// acceptance level is rejected before refinement.
+pub const EARLY_REJECT: f64 = 0.5;
 /// Bands whose centre lies beyond this wavelength enter the screen, µm.
 pub const SCREEN_FROM_UM: f64 = 3.0;
 
@@ -94,6 +100,9 @@ struct Kept {
     cov: Vec<f64>,
     rmse: f64,
     active: u8,
+    /// An allowed material column held at zero (conservatively a boundary case: its
+    /// multiplier is not tested here).
+    boundary: bool,
     unexplained: bool,
 }
 
@@ -125,9 +134,9 @@ pub fn run(
     );
     let tested = summary.tested.max(1);
     let alpha = summary.false_alarm / tested as f64;
-    let accept = ChiSquared::new(2.0 * components as f64)
-        .expect("positive degrees of freedom")
-        .inverse_cdf(1.0 - alpha);
+    let chi2_2 = ChiSquared::new(2.0).expect("positive degrees of freedom");
+    let accept = chi2_2.inverse_cdf(1.0 - alpha);
+    let second = chi2_2.inverse_cdf(1.0 - summary.false_alarm);
     let ir: Vec<usize> = (0..nb)
         .filter(|&b| inp.centres_um[b] > SCREEN_FROM_UM)
         .collect();
@@ -209,30 +218,41 @@ pub fn run(
                 return None;
             }
             let scale: Vec<f64> = inp.weights.iter().map(|w| w / divisor).collect();
-            let px = Pixel {
-                y: &y,
-                e: &e,
-                m: allowed.len(),
-                start: &start,
-                thermal_scale: &scale,
-            };
-            let joint = match components {
-                2 => fit_two(&px, cols_t, inp.range_k),
-                _ => fit_one(&px, cols_t, inp.range_k),
-            }?;
-            let sol = &joint.solution;
-            let fs = &sol.x[allowed.len()..];
-            if (rss0 - sol.rss) / var <= accept || fs.iter().any(|f| *f <= 0.0) {
+            let px = Pixel::new(&y, &e, allowed.len(), &start, &scale);
+            // A grid optimum far below the acceptance level is not refined: the
+            // refinement moves T by less than a grid step.
+            let (t, rss) = grid_one(&px, cols_t, inp.range_k)?;
+            if (rss0 - rss) / var < EARLY_REJECT * accept {
                 return None;
             }
+            let one = refine_one(&px, cols_t, inp.range_k, t)?;
+            if (rss0 - one.solution.rss) / var <= accept || one.solution.x[allowed.len()] <= 0.0 {
+                return None;
+            }
+            // `two`: the second component is kept where both fractions are positive and it
+            // lowers χ² significantly (χ² on 2 degrees of freedom at p); otherwise the
+            // pixel keeps one temperature and the second pair of planes stays NaN.
+            let joint = match components {
+                2 => match fit_two(&px, cols_t, inp.range_k) {
+                    Some(two)
+                        if two.solution.x[allowed.len()..].iter().all(|f| *f > 0.0)
+                            && (one.solution.rss - two.solution.rss) / var > second =>
+                    {
+                        two
+                    }
+                    _ => one,
+                },
+                _ => one,
+            };
+            let sol = &joint.solution;
             let k = sol.x.iter().filter(|v| **v > 0.0).count();
             // ν: bands + the sum-to-one row − unknowns (the non-zero abundances, f and T).
-            let nu = (nb + 1).saturating_sub(k + components);
+            let nu = (nb + 1).saturating_sub(k + joint.t_k.len());
             let sigma = inp
                 .noise
                 .unwrap_or_else(|| (sol.rss / nu.max(1) as f64).sqrt());
             let cov = covariance(&px, cols_t, &joint, sigma)?;
-            let side = allowed.len() + 2 * components;
+            let side = allowed.len() + 2 * joint.t_k.len();
             let mut values = Vec::with_capacity(4 * components);
             for (kk, t) in joint.t_k.iter().enumerate() {
                 let fi = allowed.len() + kk;
@@ -242,6 +262,7 @@ pub fn run(
                 values.push(cov[ti * side + ti].max(0.0).sqrt() as f32);
                 values.push(cov[fcov * side + fcov].max(0.0).sqrt() as f32);
             }
+            values.resize(4 * components, f32::NAN);
             // The raw abundances over all columns, and their covariance (M × M).
             let mut raw = vec![0.0; m];
             for (ii, &j) in allowed.iter().enumerate() {
@@ -284,6 +305,10 @@ pub fn run(
                 cov: pc,
                 rmse: (sol.rss / nb as f64).sqrt(),
                 active: raw.iter().filter(|v| **v > 0.0).count() as u8,
+                boundary: allowed
+                    .iter()
+                    .enumerate()
+                    .any(|(ii, &j)| j < mat && sol.x[ii] <= 0.0),
                 unexplained: sol.rss / var > critical,
             })
         })
@@ -293,7 +318,17 @@ pub fn run(
         for (i, v) in k.values.iter().enumerate() {
             planes[(k.r, k.c, i)] = *v;
         }
-        out.replace_pixel(k.r, k.c, &k.reported, k.cov.clone(), k.rmse, k.active);
+        out.replace_pixel(
+            k.r,
+            k.c,
+            crate::unmix::Refit {
+                reported: k.reported.clone(),
+                cov: k.cov.clone(),
+                rmse: k.rmse,
+                active: k.active,
+                boundary: k.boundary,
+            },
+        );
         if out.misfit.flagged[(k.r, k.c)] && !k.unexplained {
             out.misfit.summary.flagged -= 1;
         } else if !out.misfit.flagged[(k.r, k.c)] && k.unexplained {

@@ -37,7 +37,7 @@ mod subsets;
 pub mod weights;
 
 pub use model::{Model, ModelError};
-pub use output::{Counts, RunOptions, StdErrors, UnmixOutput, DARK_LIMIT};
+pub use output::{Counts, Refit, RunOptions, StdErrors, UnmixOutput, DARK_LIMIT};
 pub use params::{ParamError, Precision, Solver, Subsets, UnmixParams};
 pub use run::{unmix, unmix_with};
 

@@ -26,6 +26,20 @@ pub struct Counts {
     pub steps: usize,
 }
 
+/// A pixel refitted after unmixing ([`UnmixOutput::replace_pixel`]).
+#[derive(Debug, Clone)]
+pub struct Refit {
+    /// The reported planes: materials, then shade when reported.
+    pub reported: Vec<f64>,
+    /// Their covariance, P × P row-major.
+    pub cov: Vec<f64>,
+    pub rmse: f64,
+    /// Non-zero abundances.
+    pub active: u8,
+    /// A member in use held at zero.
+    pub boundary: bool,
+}
+
 /// Everything unmixing produces.
 #[derive(Debug, Clone)]
 pub struct UnmixOutput {
@@ -126,24 +140,17 @@ impl UnmixOutput {
     }
 
     /// Puts a refitted pixel in place: its reported planes (materials, then shade when
-    /// reported), their covariance (P × P, row-major), fit RMSE and non-zero count. Its
-    /// boundary flags, which describe the fit it replaces, are cleared.
-    pub fn replace_pixel(
-        &mut self,
-        r: usize,
-        c: usize,
-        reported: &[f64],
-        cov: Vec<f64>,
-        rmse: f64,
-        active: u8,
-    ) {
-        for (j, v) in reported.iter().enumerate() {
+    /// reported), their covariance (P × P, row-major), fit RMSE and non-zero count, and
+    /// whether the new fit holds a member at zero (its boundary flag; the per-column mask,
+    /// which describes the fit it replaces, is cleared).
+    pub fn replace_pixel(&mut self, r: usize, c: usize, fit: Refit) {
+        for (j, v) in fit.reported.iter().enumerate() {
             self.abundance[(r, c, j)] = *v as f32;
         }
-        self.errors.overrides.insert((r, c), cov);
-        self.rmse[(r, c)] = rmse as f32;
-        self.active[(r, c)] = active;
-        self.boundary[(r, c)] = false;
+        self.errors.overrides.insert((r, c), fit.cov);
+        self.rmse[(r, c)] = fit.rmse as f32;
+        self.active[(r, c)] = fit.active;
+        self.boundary[(r, c)] = fit.boundary;
         self.boundary_columns[(r, c)] = 0;
     }
 

@@ -15,6 +15,7 @@ mod out_folders;
 mod roundtrip;
 mod solar;
 mod support;
+mod thermal;
 mod units;
 mod unmix;
 mod unmix_cli;

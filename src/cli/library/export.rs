@@ -27,6 +27,19 @@ pub struct Args {
     bands: Option<String>,
     #[command(flatten)]
     select: BandArgs,
+    /// With --bands: add a column `emission_<T>K` per temperature T (K, comma-separated):
+    /// the I/F a whole pixel at T adds to each band (emissivity 1), for a cube at the
+    /// Sun's distance --sun-distance.
+    #[arg(long, value_name = "T,…", value_delimiter = ',')]
+    emission: Vec<f64>,
+    /// The Sun's distance for --emission, AU. Default 1.
+    #[arg(
+        long,
+        value_name = "AU",
+        default_value_t = 1.0,
+        allow_hyphen_values = true
+    )]
+    sun_distance: f64,
     /// Output format; only `csv` today.
     #[arg(long, value_name = "FORMAT", default_value = "csv")]
     format: String,
@@ -48,9 +61,34 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     let bytes = match &a.bands {
         Some(arg) => {
             let (_, bands) = selected_bands(arg, &a.select)?;
-            export::resampled_csv(&lib, &resample(&lib, &bands)?)
+            if !(a.sun_distance.is_finite() && a.sun_distance > 0.0) {
+                bail!(
+                    "--sun-distance {}: the Sun's distance must be greater than 0 AU",
+                    a.sun_distance
+                );
+            }
+            let sun = thiomap::library::solar::Sun::embedded();
+            let mut extra = Vec::new();
+            for &t in &a.emission {
+                if !(t.is_finite() && t > 0.0) {
+                    bail!("--emission {t}: a temperature must be greater than 0 K");
+                }
+                let v: Option<Vec<f64>> = bands
+                    .bands()
+                    .iter()
+                    .map(|b| thiomap::thermal::band_iof(b, t, a.sun_distance, 1.0, sun))
+                    .collect();
+                let v = v.ok_or_else(|| {
+                    anyhow::anyhow!("--emission: a band lies outside the solar spectrum")
+                })?;
+                extra.push((format!("emission_{t}K"), v));
+            }
+            export::resampled_csv_with(&lib, &resample(&lib, &bands)?, &extra)
         }
         None => {
+            if !a.emission.is_empty() {
+                bail!("--emission needs --bands (the columns are band values)");
+            }
             let sel = a.select.selection();
             if !sel.exclude.is_empty() {
                 bail!("--exclude-bands needs --bands (the library has no band numbers)");

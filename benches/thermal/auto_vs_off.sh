@@ -1,0 +1,18 @@
+#!/usr/bin/env bash
+# `map --thermal auto` against `--thermal off` on a demo globe with no hot spots, run
+# alternately in one session. Usage: benches/thermal/auto_vs_off.sh [PATH/TO/thiomap]
+set -euo pipefail
+T=${1:-target/release/thiomap}
+W=$(mktemp -d)
+trap 'rm -rf "$W"' EXIT
+"$T" demo --out "$W/cold.fits" --bands mapper-96 --size 384x384 --snr 200 --seed 11 > /dev/null
+echo "# $(date -u +%FT%TZ), $(nproc) cores; demo globe 384 x 384 x 96 bands (mapper-96), no hot spots"
+stage() { python3 -c "import json,sys;t=json.load(open(sys.argv[1]));print(' '.join(f\"{s['stage']} {s['seconds']:.3f}\" for s in t['stages']))" "$1"; }
+for i in 1 2 3 4 5 6 7; do
+  for m in off auto; do
+    rm -rf "$W/r-$m"
+    s=$(date +%s.%N); "$T" map "$W/cold.fits" --out "$W/r-$m" --thermal "$m" > /dev/null 2>&1; e=$(date +%s.%N)
+    echo "run $i thermal=$m wall $(python3 -c "print(f'{$e-$s:.3f}')") s | $(stage "$W/r-$m/timings.json")"
+  done
+done
+python3 -c "import json,sys;t=json.load(open(sys.argv[1]))['thermal'];print('auto:', {k:t[k] for k in ('screened_pixels','fitted_pixels','hot_spots')})" "$W/r-auto/summary.json"
