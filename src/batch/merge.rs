@@ -1,6 +1,7 @@
 //! Merging results folders into one archive table: `archive.csv` (one row per cube:
 //! `cube`, `status`, `area_<class>` for every class id, `mean_<id>` for every member or
-//! group, `mean_rmse`), `archive.json`, the joined failure lists, every manifest entry
+//! group, `mean_rmse`, `hot_spots`, `hottest_k`), `archive-hotspots.csv` (every hot spot
+//! of every cube), `archive.json`, the joined failure lists, every manifest entry
 //! without a result, and a chart of class area fractions by cube.
 
 use std::collections::{BTreeMap, BTreeSet};
@@ -19,8 +20,24 @@ pub struct Row {
     pub mean_rmse: Option<f64>,
     /// The observation time the cube declared, if any.
     pub time: Option<String>,
+    /// Hot spots, when a thermal fit ran, and the hottest peak temperature, K.
+    pub hot_spots: Option<usize>,
+    pub hottest_k: Option<f64>,
     /// Why, when failed or missing.
     pub reason: Option<String>,
+}
+
+/// One hot spot of one cube, for following a vent through time.
+#[derive(Debug, Clone, Serialize, PartialEq)]
+pub struct SpotRow {
+    pub cube: String,
+    pub time: Option<String>,
+    pub id: u64,
+    pub lat_deg: Option<f64>,
+    pub lon_deg: Option<f64>,
+    pub peak_temperature_k: f64,
+    pub peak_temperature_k_stderr: f64,
+    pub power_w: Option<f64>,
 }
 
 /// The merged archive.
@@ -29,6 +46,8 @@ pub struct Archive {
     pub rows: Vec<Row>,
     pub classes: Vec<String>,
     pub ids: Vec<String>,
+    /// Every hot spot of every cube, by cube then id.
+    pub spots: Vec<SpotRow>,
 }
 
 fn walk_results(root: &Path, dir: &Path, out: &mut Vec<(String, PathBuf)>) {
@@ -61,6 +80,7 @@ pub fn merge(dirs: &[PathBuf]) -> anyhow::Result<Archive> {
     let mut classes = BTreeSet::new();
     let mut ids: Vec<String> = Vec::new();
     let mut listed: BTreeSet<String> = BTreeSet::new();
+    let mut spots: Vec<SpotRow> = Vec::new();
     for dir in dirs {
         if !dir.is_dir() {
             anyhow::bail!("{}: not a folder", dir.display());
@@ -92,6 +112,29 @@ pub fn merge(dirs: &[PathBuf]) -> anyhow::Result<Archive> {
                     means.insert(id, m["mean"].as_f64().unwrap_or(f64::NAN));
                 }
             }
+            let time = s["observation_time"].as_str().map(String::from);
+            let thermal = &s["thermal"];
+            let hot = path.join("hotspots.json");
+            if hot.is_file() {
+                let text =
+                    std::fs::read_to_string(&hot).with_context(|| format!("{}", hot.display()))?;
+                let h: serde_json::Value = serde_json::from_str(&text)
+                    .with_context(|| format!("{}: not JSON", hot.display()))?;
+                for sp in h["spots"].as_array().into_iter().flatten() {
+                    spots.push(SpotRow {
+                        cube: cube.clone(),
+                        time: time.clone(),
+                        id: sp["id"].as_u64().unwrap_or(0),
+                        lat_deg: sp["lat_deg"].as_f64(),
+                        lon_deg: sp["lon_deg"].as_f64(),
+                        peak_temperature_k: sp["peak_temperature_k"].as_f64().unwrap_or(f64::NAN),
+                        peak_temperature_k_stderr: sp["peak_temperature_k_stderr"]
+                            .as_f64()
+                            .unwrap_or(f64::NAN),
+                        power_w: sp["power_w"].as_f64(),
+                    });
+                }
+            }
             rows.insert(
                 cube.clone(),
                 Row {
@@ -100,7 +143,9 @@ pub fn merge(dirs: &[PathBuf]) -> anyhow::Result<Archive> {
                     areas,
                     means,
                     mean_rmse: s["mean_rmse"].as_f64(),
-                    time: s["observation_time"].as_str().map(String::from),
+                    time,
+                    hot_spots: thermal["hot_spots"].as_u64().map(|n| n as usize),
+                    hottest_k: thermal["hottest"]["peak_temperature_k"].as_f64(),
                     reason: None,
                 },
             );
@@ -113,6 +158,8 @@ pub fn merge(dirs: &[PathBuf]) -> anyhow::Result<Archive> {
                 means: BTreeMap::new(),
                 mean_rmse: None,
                 time: None,
+                hot_spots: None,
+                hottest_k: None,
                 reason: Some(format!("{}: {}", f.stage, f.reason)),
             });
         }
@@ -126,6 +173,8 @@ pub fn merge(dirs: &[PathBuf]) -> anyhow::Result<Archive> {
             means: BTreeMap::new(),
             mean_rmse: None,
             time: None,
+            hot_spots: None,
+            hottest_k: None,
             reason: Some(
                 "listed in a manifest, but no complete result and no failure was found".into(),
             ),
@@ -135,6 +184,7 @@ pub fn merge(dirs: &[PathBuf]) -> anyhow::Result<Archive> {
         rows: rows.into_values().collect(),
         classes: classes.into_iter().collect(),
         ids,
+        spots,
     })
 }
 
@@ -146,6 +196,8 @@ impl Archive {
         header.extend(self.classes.iter().map(|c| format!("area_{c}")));
         header.extend(self.ids.iter().map(|i| format!("mean_{i}")));
         header.push("mean_rmse".into());
+        header.push("hot_spots".into());
+        header.push("hottest_k".into());
         w.write_record(&header)?;
         for r in &self.rows {
             let mut rec = vec![r.cube.clone(), r.status.clone()];
@@ -160,9 +212,43 @@ impl Archive {
             }));
             rec.extend(self.ids.iter().map(|i| num(r.means.get(i))));
             rec.push(r.mean_rmse.map(|x| format!("{x:.6e}")).unwrap_or_default());
+            rec.push(r.hot_spots.map(|n| n.to_string()).unwrap_or_default());
+            rec.push(r.hottest_k.map(|t| format!("{t:.1}")).unwrap_or_default());
             w.write_record(&rec)?;
         }
         Ok(w.into_inner()?)
+    }
+
+    /// `archive-hotspots.csv` text: the hot-spot caution, then one row per spot of every
+    /// cube (cube, time, id, lat/lon, peak temperature and its error, power).
+    pub fn spots_csv(&self) -> anyhow::Result<Vec<u8>> {
+        let mut w = csv::Writer::from_writer(Vec::new());
+        w.write_record([
+            "cube",
+            "time",
+            "spot",
+            "lat_deg",
+            "lon_deg",
+            "peak_temperature_k",
+            "peak_temperature_k_stderr",
+            "power_w",
+        ])?;
+        let opt = |v: Option<f64>, p: usize| v.map_or(String::new(), |v| format!("{v:.p$}"));
+        for s in &self.spots {
+            w.write_record([
+                s.cube.clone(),
+                s.time.clone().unwrap_or_default(),
+                s.id.to_string(),
+                opt(s.lat_deg, 4),
+                opt(s.lon_deg, 4),
+                format!("{:.1}", s.peak_temperature_k),
+                format!("{:.1}", s.peak_temperature_k_stderr),
+                s.power_w.map_or(String::new(), |p| format!("{p:.4e}")),
+            ])?;
+        }
+        let mut out = format!("# {}\n", crate::results::products::HOT_SPOT_CAUTION).into_bytes();
+        out.extend(w.into_inner()?);
+        Ok(out)
     }
 
     /// A stacked bar chart of class area fractions by cube, as SVG — in order of

@@ -10,7 +10,8 @@ use thiomap::batch;
 /// Merge batch results into one archive table, its JSON and a chart.
 #[derive(Debug, clap::Args)]
 #[command(after_help = "Example:\n  thiomap merge results/ --out archive/\n\n\
-    Writes archive.csv (cube, status, area_<class>…, mean_<id>…, mean_rmse), archive.json \
+    Writes archive.csv (cube, status, area_<class>…, mean_<id>…, mean_rmse, hot_spots, \
+    hottest_k), archive-hotspots.csv (every hot spot of every cube), archive.json \
     and archive-classes.svg; joins the shards' failure lists and lists every manifest entry \
     that has no result.")]
 pub struct Args {
@@ -26,10 +27,12 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     // Everything is read and drawn before the folder is made.
     let archive = batch::merge::merge(&a.dirs)?;
     let csv = archive.to_csv()?;
+    let spots = archive.spots_csv()?;
     let svg = archive.chart_svg().map_err(anyhow::Error::msg)?;
     std::fs::create_dir_all(&a.out)
         .with_context(|| format!("{}: cannot create", a.out.display()))?;
     thiomap::atomic::write_bytes(&a.out.join("archive.csv"), &csv)?;
+    thiomap::atomic::write_bytes(&a.out.join("archive-hotspots.csv"), &spots)?;
     thiomap::results::write_json(&a.out.join("archive.json"), &archive)?;
     thiomap::atomic::write_bytes(&a.out.join("archive-classes.svg"), svg.as_bytes())?;
     let count = |s: &str| archive.rows.iter().filter(|r| r.status == s).count();

@@ -135,6 +135,28 @@ fn hot_spots_of_the_demo_are_recovered() {
     let csv = std::fs::read_to_string(out.join("hotspots.csv")).unwrap();
     assert!(csv.starts_with("# Temperatures and areas are model estimates"));
     assert!(out.join("hotspots.png").is_file());
+    // merge: the count and the hottest spot per cube, and every spot with its cube.
+    let merged = dir.path().join("m");
+    let run = thiomap(&[
+        "merge",
+        dir.path().to_str().unwrap(),
+        "--out",
+        merged.to_str().unwrap(),
+    ]);
+    assert!(run.status.success(), "{}", stderr(&run));
+    let archive = std::fs::read_to_string(merged.join("archive.csv")).unwrap();
+    let header: Vec<&str> = archive.lines().next().unwrap().split(',').collect();
+    let row: Vec<&str> = archive.lines().nth(1).unwrap().split(',').collect();
+    let at = |name: &str| row[header.iter().position(|h| *h == name).unwrap()];
+    let n_spots = summary["thermal"]["hot_spots"].as_u64().unwrap();
+    assert_eq!(at("hot_spots"), n_spots.to_string());
+    let hottest = summary["thermal"]["hottest"]["peak_temperature_k"]
+        .as_f64()
+        .unwrap();
+    assert!((at("hottest_k").parse::<f64>().unwrap() - hottest).abs() < 0.06);
+    let spots_csv = std::fs::read_to_string(merged.join("archive-hotspots.csv")).unwrap();
+    assert!(spots_csv.starts_with("# Temperatures and areas are model estimates"));
+    assert_eq!(spots_csv.lines().count() as u64, 2 + n_spots);
     // Abundances of the fitted pixels against the truth, within the scene's RMSE target.
     let ab = read_planes(&out.join("abundance.fits"));
     let ids: Vec<String> = summary["endmembers"]
