@@ -15,10 +15,12 @@ use super::unmix::UnmixArgs;
 #[command(after_help = "Examples:\n  \
     thiomap map demo-cubes/brimveil-globe-mapper96.fits --out results/globe\n  \
     thiomap map scene.fits --out r --units 6 --min-area 9\n  \
-    thiomap map scene.fits --out r --recipe recipe.toml --seed 7\n\n\
+    thiomap map scene.fits --out r --recipe recipe.toml --seed 7\n  \
+    thiomap map hot.fits --out r --thermal two --sun-distance 4.8 --body-radius 1500\n\n\
     Writes everything `unmix` writes plus units.fits, units.png, units-legend.svg, \
     true-colour.png, units.csv and units-spectra.svg; summary.json gains `units` and \
-    `classes`. The maps are analysis aids: decisions about spacecraft pointing or fieldwork \
+    `classes`. Where emission is fitted: thermal.fits and hotspots.csv/.json/.png, whose \
+    temperatures are model estimates (sensitive to emissivity and unresolved mixtures). The maps are analysis aids: decisions about spacecraft pointing or fieldwork \
     at active vents defer to mission flight rules, local codes and licensed practice.")]
 pub struct Args {
     #[command(flatten)]
