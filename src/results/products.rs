@@ -292,22 +292,37 @@ fn unexplained_unit(map: &UnitMap) -> Option<i16> {
         .map(|u| u.unit as i16)
 }
 
-/// `units.png`: each unit in its colour, unexplained pixels marked.
+/// `units.png`: each unit in its colour, unexplained pixels marked, hot spots ringed on
+/// top (labelled by id) when a thermal fit found any.
 pub fn units_picture(dir: &Path, r: &CubeResult, map: &UnitMap) -> Result<(), WriteError> {
     let colours = map
         .units
         .iter()
         .map(|u| (u.unit as i16, u.colour))
         .collect();
-    write_png(
-        &dir.join("units.png"),
-        &render::maps::unit_map(
-            map.labels.view(),
-            &colours,
-            unexplained_unit(map),
-            r.cube.info.format.row0_at_bottom(),
-        ),
-    )
+    let row0_at_bottom = r.cube.info.format.row0_at_bottom();
+    let mut img = render::maps::unit_map(
+        map.labels.view(),
+        &colours,
+        unexplained_unit(map),
+        row0_at_bottom,
+    );
+    if let Some(t) = r.thermal.filter(|t| !t.spots.is_empty()) {
+        img = render::maps::mark_spots(&img, r.cube.info.rows, row0_at_bottom, &spot_markers(t));
+    }
+    write_png(&dir.join("units.png"), &img)
+}
+
+/// The hot spots as picture markers: id and peak temperature.
+fn spot_markers(t: &crate::pipeline::ThermalResult) -> Vec<render::maps::Marker> {
+    t.spots
+        .iter()
+        .map(|s| render::maps::Marker {
+            row: s.row,
+            col: s.col,
+            label: format!("{} · {:.0} K", s.id, s.peak_temperature_k),
+        })
+        .collect()
 }
 
 /// `true-colour.png`: the cube rendered under D65, enlarged to about 512 pixels.
@@ -565,20 +580,11 @@ pub fn hot_spot_picture(dir: &Path, r: &CubeResult) -> Result<(), WriteError> {
     let Some(t) = r.thermal else { return Ok(()) };
     let (tc, _) = render::maps::true_colour(r.cube);
     let big = render::maps::enlarge(&tc, 512);
-    let markers: Vec<render::maps::Marker> = t
-        .spots
-        .iter()
-        .map(|s| render::maps::Marker {
-            row: s.row,
-            col: s.col,
-            label: format!("{} · {:.0} K", s.id, s.peak_temperature_k),
-        })
-        .collect();
     let img = render::maps::mark_spots(
         &big,
         r.cube.info.rows,
         r.cube.info.format.row0_at_bottom(),
-        &markers,
+        &spot_markers(t),
     );
     write_png(&dir.join("hotspots.png"), &img)
 }
