@@ -128,9 +128,31 @@ def check_results_folder(thiomap, tmp):
         f.verify("exception")
     with fits.open(os.path.join(root, "demo-cubes", "brimveil-tile-spectrometer24.truth.fits.gz")) as f:
         f.verify("exception")
-        if [h.name for h in f] != ["PRIMARY", "UNITS", "CORE", "HOTSPOT"]:
-            sys.exit("truth planes: unexpected extensions")
-    print("ok  unmix results (abundance, stderr, fit-rmse) and demo truth planes pass verify('exception')")
+        if [h.name for h in f] != ["PRIMARY", "UNITS", "CORE", "HOTSPOT", "HOTTHERM"]:
+            sys.exit(f"truth planes: unexpected extensions {[h.name for h in f]}")
+        t = f["HOTTHERM"]
+        if t.data.shape != (2, 96, 96) or [t.header["PLANE1"], t.header["PLANE2"]] != [
+                "temperature_k", "fraction"]:
+            sys.exit("truth planes: HOTTHERM layout")
+    # The thermal products of the hyperspectral globe, which has hot spots.
+    globe = os.path.join(root, "demo-cubes", "brimveil-globe-mapper96.fits")
+    hot = os.path.join(tmp, "hot")
+    subprocess.run([thiomap, "unmix", globe, "--out", hot], check=True, stderr=subprocess.DEVNULL)
+    with fits.open(os.path.join(hot, "thermal.fits")) as f:
+        f.verify("exception")
+        names = [f[0].header[f"PLANE{i + 1}"] for i in range(4)]
+        if names != ["temperature_k", "fraction", "temperature_k_stderr", "fraction_stderr"]:
+            sys.exit(f"thermal.fits: planes {names}")
+        import numpy as np
+        fitted = np.isfinite(f[0].data[0])
+        if fitted.sum() < 1 or not (300 <= np.nanmax(f[0].data[0]) <= 1800):
+            sys.exit("thermal.fits: no fitted pixel in the stated range")
+    with fits.open(os.path.join(hot, "fit-flags.fits")) as f:
+        f.verify("exception")
+        if ((f[0].data & 2) > 0).sum() != fitted.sum():
+            sys.exit("fit-flags.fits: thermal bit does not match thermal.fits")
+    print("ok  unmix results (abundance, stderr, fit-rmse, thermal, fit-flags) and demo truth "
+          "planes pass verify('exception')")
 
 
 if __name__ == "__main__":
