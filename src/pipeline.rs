@@ -39,14 +39,6 @@ pub struct Prepared {
     pub warnings: Vec<String>,
 }
 
-/// The thermal stage's results: its plan, the per-pixel planes and the hot-spot table.
-#[derive(Debug, Clone)]
-pub struct ThermalResult {
-    pub plan: crate::thermal::plan::Plan,
-    pub output: crate::thermal::stage::ThermalOutput,
-    pub spots: Vec<crate::thermal::spots::HotSpot>,
-}
-
 /// Reads the cube, applies the band selection and the photometric law, resamples the
 /// library and builds the model.
 pub fn prepare(
@@ -441,9 +433,13 @@ pub fn run_cube(
         progress.warn(w);
     }
     let mut unmixed = timings.time("unmix", || run_unmix(&mut prepared, recipe, progress));
-    let thermal_out = timings.time("thermal", || {
-        run_thermal(&prepared, &mut unmixed, recipe, progress)
-    });
+    // Timed only when a thermal fit runs, so timings.json lists the stages that ran.
+    let thermal_out = match prepared.thermal {
+        Some(_) => timings.time("thermal", || {
+            run_thermal(&prepared, &mut unmixed, recipe, progress)
+        }),
+        None => None,
+    };
     let map = match job {
         Job::Unmix => None,
         Job::Map => Some(at(
@@ -451,7 +447,7 @@ pub fn run_cube(
             timings.time("units", || run_units(&prepared, &unmixed, recipe, progress)),
         )?),
     };
-    let thermal = thermal_out.map(|output| ThermalResult {
+    let thermal = thermal_out.map(|output| crate::thermal::ThermalResult {
         plan: prepared
             .thermal
             .clone()

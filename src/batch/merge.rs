@@ -246,7 +246,7 @@ impl Archive {
                 s.power_w.map_or(String::new(), |p| format!("{p:.4e}")),
             ])?;
         }
-        let mut out = format!("# {}\n", crate::results::products::HOT_SPOT_CAUTION).into_bytes();
+        let mut out = crate::thermal::spots::caution_line().into_bytes();
         out.extend(w.into_inner()?);
         Ok(out)
     }

@@ -132,3 +132,15 @@ pub fn count<T>(
         })
         .transpose()
 }
+
+/// `MIN-MAX` of two numbers for a flag's value parser; `example` ends the message ("e.g.
+/// 300-1800"). The order is checked where the values are used, so that a reversed range is
+/// reported like one from a recipe file.
+pub fn min_max(s: &str, example: &str) -> Result<(f64, f64), String> {
+    let bad = || format!("\"{s}\": expected MIN-MAX, {example}");
+    let (a, b) = s.split_once('-').ok_or_else(bad)?;
+    Ok((
+        a.trim().parse().map_err(|_| bad())?,
+        b.trim().parse().map_err(|_| bad())?,
+    ))
+}

@@ -224,12 +224,7 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     Ok(ExitCode::SUCCESS)
 }
 
-/// `MIN-MAX` of two numbers (their order is checked with the scene).
+/// `MIN-MAX` of two numbers.
 fn parse_pair(s: &str) -> Result<(f64, f64), String> {
-    let bad = || format!("\"{s}\": expected MIN-MAX, e.g. 550-850");
-    let (a, b) = s.split_once('-').ok_or_else(bad)?;
-    Ok((
-        a.trim().parse().map_err(|_| bad())?,
-        b.trim().parse().map_err(|_| bad())?,
-    ))
+    super::common::min_max(s, "e.g. 550-850")
 }

@@ -285,16 +285,7 @@ pub fn run(args: Args) -> anyhow::Result<ExitCode> {
     Ok(ExitCode::SUCCESS)
 }
 
-/// `MIN-MAX` in kelvin (the order is checked with the recipe, so that a reversed range is
-/// reported like one from a file).
+/// `MIN-MAX` in kelvin.
 fn parse_kelvin_range(s: &str) -> Result<(f64, f64), String> {
-    let (a, b) = s
-        .split_once('-')
-        .ok_or_else(|| format!("\"{s}\": expected MIN-MAX in K, e.g. 300-1800"))?;
-    let num = |v: &str| {
-        v.trim()
-            .parse::<f64>()
-            .map_err(|_| format!("\"{s}\": expected MIN-MAX in K, e.g. 300-1800"))
-    };
-    Ok((num(a)?, num(b)?))
+    super::common::min_max(s, "in K, e.g. 300-1800")
 }

@@ -42,7 +42,7 @@ pub struct CubeResult<'a> {
     /// The surface units (`map` only).
     pub units: Option<&'a UnitMap>,
     /// The thermal fit, when one ran.
-    pub thermal: Option<&'a crate::pipeline::ThermalResult>,
+    pub thermal: Option<&'a crate::thermal::ThermalResult>,
     pub recipe: &'a Recipe,
     /// The warnings the run gave, recorded in `summary.json`.
     pub warnings: &'a [String],
@@ -117,14 +117,19 @@ fn write_products(dir: &Path, r: &CubeResult) -> Result<(), WriteError> {
     products::fit_flags_plane(dir, r)?;
     products::thermal_planes(dir, r)?;
     products::hot_spot_tables(dir, r)?;
-    products::hot_spot_picture(dir, r)?;
+    let tc = (r.thermal.is_some() || r.units.is_some()).then(|| products::true_colour_image(r));
+    if let Some(tc) = &tc {
+        products::hot_spot_picture(dir, r, tc)?;
+    }
     products::residual_planes(dir, r)?;
     products::abundance_pictures(dir, r)?;
     products::fit_rmse_picture(dir, r)?;
     if let Some(map) = r.units {
         products::units_plane(dir, r, map)?;
         products::units_picture(dir, r, map)?;
-        products::true_colour_picture(dir, r)?;
+        if let Some(tc) = &tc {
+            products::true_colour_picture(dir, tc)?;
+        }
         products::units_legend(dir, map)?;
         products::units_table(dir, r, map)?;
         products::units_spectra(dir, r, map)?;

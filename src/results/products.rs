@@ -314,7 +314,7 @@ pub fn units_picture(dir: &Path, r: &CubeResult, map: &UnitMap) -> Result<(), Wr
 }
 
 /// The hot spots as picture markers: id and peak temperature.
-fn spot_markers(t: &crate::pipeline::ThermalResult) -> Vec<render::maps::Marker> {
+fn spot_markers(t: &crate::thermal::ThermalResult) -> Vec<render::maps::Marker> {
     t.spots
         .iter()
         .map(|s| render::maps::Marker {
@@ -325,13 +325,15 @@ fn spot_markers(t: &crate::pipeline::ThermalResult) -> Vec<render::maps::Marker>
         .collect()
 }
 
-/// `true-colour.png`: the cube rendered under D65, enlarged to about 512 pixels.
-pub fn true_colour_picture(dir: &Path, r: &CubeResult) -> Result<(), WriteError> {
-    let (tc, _) = render::maps::true_colour(r.cube);
-    write_png(
-        &dir.join("true-colour.png"),
-        &render::maps::enlarge(&tc, 512),
-    )
+/// The cube rendered under D65, enlarged to about 512 pixels: the ground of
+/// `true-colour.png` and `hotspots.png`, made once for both.
+pub fn true_colour_image(r: &CubeResult) -> image::RgbImage {
+    render::maps::enlarge(&render::maps::true_colour(r.cube).0, 512)
+}
+
+/// `true-colour.png`: [`true_colour_image`].
+pub fn true_colour_picture(dir: &Path, tc: &image::RgbImage) -> Result<(), WriteError> {
+    write_png(&dir.join("true-colour.png"), tc)
 }
 
 /// `units-legend.svg`: one row per unit with its colour, label, class and area.
@@ -484,13 +486,6 @@ pub fn summary(dir: &Path, r: &CubeResult) -> Result<(), WriteError> {
     super::write_json(&path, &value)
 }
 
-/// The caution every hot-spot product carries.
-pub const HOT_SPOT_CAUTION: &str = "Temperatures and areas are model estimates from single-pixel \
-fits, with the stated standard errors; they depend on the emissivity assumed and on \
-unresolved mixtures of temperatures. Active vents carry SO2 and H2S gas, heat and unstable \
-ground: decisions about approaching or observing them defer to local codes, licensed \
-practice and mission flight rules.";
-
 /// `thermal.fits`: T, f and their standard errors per pixel (NaN where not fitted).
 pub fn thermal_planes(dir: &Path, r: &CubeResult) -> Result<(), WriteError> {
     let Some(t) = r.thermal else { return Ok(()) };
@@ -557,13 +552,13 @@ pub fn hot_spot_tables(dir: &Path, r: &CubeResult) -> Result<(), WriteError> {
         .map_err(csv_err)?;
     }
     let body = w.into_inner().map_err(|e| failed(dir, "hotspots.csv", e))?;
-    let mut bytes = format!("# {}\n", HOT_SPOT_CAUTION.replace('\n', " ")).into_bytes();
+    let mut bytes = crate::thermal::spots::caution_line().into_bytes();
     bytes.extend(body);
     atomic::write_bytes(&dir.join("hotspots.csv"), &bytes)?;
     super::write_json(
         &dir.join("hotspots.json"),
         &serde_json::json!({
-            "caution": HOT_SPOT_CAUTION,
+            "caution": crate::thermal::spots::HOT_SPOT_CAUTION,
             "mode": t.plan.mode.name(),
             "sun_distance_au": t.plan.sun_distance_au,
             "sun_distance_source": t.plan.sun_distance_source,
@@ -576,12 +571,14 @@ pub fn hot_spot_tables(dir: &Path, r: &CubeResult) -> Result<(), WriteError> {
 
 /// `hotspots.png`: the spots ringed on the true-colour picture, labelled by id and peak
 /// temperature.
-pub fn hot_spot_picture(dir: &Path, r: &CubeResult) -> Result<(), WriteError> {
+pub fn hot_spot_picture(
+    dir: &Path,
+    r: &CubeResult,
+    tc: &image::RgbImage,
+) -> Result<(), WriteError> {
     let Some(t) = r.thermal else { return Ok(()) };
-    let (tc, _) = render::maps::true_colour(r.cube);
-    let big = render::maps::enlarge(&tc, 512);
     let img = render::maps::mark_spots(
-        &big,
+        tc,
         r.cube.info.rows,
         r.cube.info.format.row0_at_bottom(),
         &spot_markers(t),

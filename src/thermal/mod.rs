@@ -54,6 +54,14 @@ impl Mode {
     }
 }
 
+/// The thermal stage's results: its plan, the per-pixel planes and the hot-spot table.
+#[derive(Debug, Clone)]
+pub struct ThermalResult {
+    pub plan: plan::Plan,
+    pub output: stage::ThermalOutput,
+    pub spots: Vec<spots::HotSpot>,
+}
+
 /// The default temperature range of the search, K.
 pub const DEFAULT_RANGE_K: (f64, f64) = (300.0, 1800.0);
 /// A cube needs a band centred beyond this wavelength for thermal fitting, µm.

@@ -14,6 +14,18 @@ use ndarray::{Array2, ArrayView2, ArrayView3};
 
 use super::STEFAN_BOLTZMANN;
 
+/// The caution every hot-spot product carries.
+pub const HOT_SPOT_CAUTION: &str = "Temperatures and areas are model estimates from single-pixel \
+fits, with the stated standard errors; they depend on the emissivity assumed and on \
+unresolved mixtures of temperatures. Active vents carry SO2 and H2S gas, heat and unstable \
+ground: decisions about approaching or observing them defer to local codes, licensed \
+practice and mission flight rules.";
+
+/// The caution as the first line of a CSV table: `# ` and a newline.
+pub fn caution_line() -> String {
+    format!("# {HOT_SPOT_CAUTION}\n")
+}
+
 /// One hot spot.
 #[derive(Debug, Clone, PartialEq, serde::Serialize)]
 pub struct HotSpot {

@@ -95,14 +95,9 @@ struct Kept {
     c: usize,
     /// T, f, σ_T, σ_f per component.
     values: Vec<f32>,
-    /// Reported planes and their covariance (P × P).
-    reported: Vec<f64>,
-    cov: Vec<f64>,
-    rmse: f64,
-    active: u8,
-    /// An allowed material column held at zero (conservatively a boundary case: its
-    /// multiplier is not tested here).
-    boundary: bool,
+    /// What replaces the reflected-only fit. Its boundary flag: a member in use held at
+    /// zero (conservatively a boundary case: its multiplier is not tested here).
+    fit: crate::unmix::Refit,
     unexplained: bool,
 }
 
@@ -301,34 +296,26 @@ pub fn run(
                 r,
                 c,
                 values,
-                reported,
-                cov: pc,
-                rmse: (sol.rss / nb as f64).sqrt(),
-                active: raw.iter().filter(|v| **v > 0.0).count() as u8,
-                boundary: allowed
-                    .iter()
-                    .enumerate()
-                    .any(|(ii, &j)| j < mat && sol.x[ii] <= 0.0),
+                fit: crate::unmix::Refit {
+                    reported,
+                    cov: pc,
+                    rmse: (sol.rss / nb as f64).sqrt(),
+                    active: raw.iter().filter(|v| **v > 0.0).count() as u8,
+                    boundary: allowed
+                        .iter()
+                        .enumerate()
+                        .any(|(ii, &j)| j < mat && sol.x[ii] <= 0.0),
+                },
                 unexplained: sol.rss / var > critical,
             })
         })
         .collect();
-    for k in &kept {
+    for k in kept {
         fitted[(k.r, k.c)] = true;
         for (i, v) in k.values.iter().enumerate() {
             planes[(k.r, k.c, i)] = *v;
         }
-        out.replace_pixel(
-            k.r,
-            k.c,
-            crate::unmix::Refit {
-                reported: k.reported.clone(),
-                cov: k.cov.clone(),
-                rmse: k.rmse,
-                active: k.active,
-                boundary: k.boundary,
-            },
-        );
+        out.replace_pixel(k.r, k.c, k.fit);
         if out.misfit.flagged[(k.r, k.c)] && !k.unexplained {
             out.misfit.summary.flagged -= 1;
         } else if !out.misfit.flagged[(k.r, k.c)] && k.unexplained {

@@ -10,7 +10,7 @@ fn demo_cube(name: &str) -> PathBuf {
         .join(name)
 }
 
-fn map(cube: &Path, out: &Path, extra: &[&str]) -> std::process::Output {
+pub(super) fn map(cube: &Path, out: &Path, extra: &[&str]) -> std::process::Output {
     let mut args = vec![
         "map",
         cube.to_str().unwrap(),

@@ -21,16 +21,7 @@ fn scene(dir: &std::path::Path, name: &str, extra: &[&str]) -> std::path::PathBu
     cube
 }
 
-fn map(cube: &std::path::Path, out: &std::path::Path, extra: &[&str]) -> std::process::Output {
-    let mut args = vec![
-        "map",
-        cube.to_str().unwrap(),
-        "--out",
-        out.to_str().unwrap(),
-    ];
-    args.extend_from_slice(extra);
-    thiomap(&args)
-}
+use super::map_cli::map;
 
 fn json(path: &std::path::Path) -> serde_json::Value {
     serde_json::from_str(&std::fs::read_to_string(path).unwrap()).unwrap()
