@@ -14,8 +14,8 @@
 //! written here, on nalgebra's LU for the bordered systems.
 //!
 //! Temperatures are searched: one temperature on a grid of [`GRID_STEP_K`] over the range,
-//! refined by golden-section search (Kiefer 1953) on the residual to [`T_TOLERANCE_K`];
-//! two temperatures (`two`, the two-component sub-pixel model of Dozier 1981, Remote Sens.
+//! refined by golden-section search (Kiefer 1953, from memory) on the residual to
+//! [`T_TOLERANCE_K`]; two temperatures (`two`, the two-component sub-pixel model of Dozier 1981, Remote Sens.
 //! Environ. 11:221, from memory) on a coarser grid of pairs T₁ < T₂, refined by golden
 //! sections on each temperature in turn.
 //!
