@@ -20,7 +20,7 @@
 //!
 //! Pure arithmetic on arrays: no I/O.
 
-use ndarray::{Array2, Array3, ArrayView2, ArrayView3};
+use ndarray::{s, Array2, Array3, ArrayView2, ArrayView3};
 use rayon::prelude::*;
 use statrs::distribution::{ChiSquared, ContinuousCDF};
 
@@ -161,24 +161,53 @@ pub fn run(
         let sbar = y.iter().sum::<f64>() / nb as f64;
         (y, a, sbar)
     };
+    let e_ir: Vec<f64> = (0..m)
+        .map(|j| ir.iter().map(|&b| model.e[(b, j)]).sum())
+        .collect();
+    // The screen reads only what its test needs (the mean weighted signal, and the bands
+    // beyond 3 µm), with one abundance buffer per worker: it visits every pixel.
     let screened: Vec<(usize, usize)> = candidates
         .par_iter()
         .copied()
-        .filter(|&(r, c)| {
-            if out.misfit.flagged[(r, c)] {
-                return true;
-            }
-            if ir.is_empty() {
-                return false;
-            }
-            let (y, a, sbar) = pixel(r, c);
-            let var = s2 + k2 * sbar * sbar;
-            let sum: f64 = ir
-                .iter()
-                .map(|&b| y[b] - (0..m).map(|j| model.e[(b, j)] * a[j]).sum::<f64>())
-                .sum();
-            sum / (var * ir.len() as f64).sqrt() > SCREEN_Z
-        })
+        .map_init(
+            || vec![0.0f64; m],
+            |a, (r, c)| {
+                if out.misfit.flagged[(r, c)] {
+                    return Some((r, c));
+                }
+                if ir.is_empty() {
+                    return None;
+                }
+                let shade = if report_shade {
+                    out.abundance[(r, c, mat)] as f64
+                } else {
+                    0.0
+                };
+                for (j, v) in a.iter_mut().enumerate().take(mat) {
+                    *v = out.abundance[(r, c, j)] as f64 * (1.0 - shade);
+                }
+                if model.shade {
+                    a[mat] = shade;
+                }
+                let spectrum = inp.data.slice(s![r, c, ..]);
+                let sbar = spectrum
+                    .iter()
+                    .zip(inp.weights)
+                    .map(|(v, w)| *v as f64 * w)
+                    .sum::<f64>()
+                    / nb as f64;
+                let var = s2 + k2 * sbar * sbar;
+                // Σ_b (y_b − Σ_j E_bj a_j) over the bands beyond 3 µm, with the model's
+                // column sums over those bands made once.
+                let sum: f64 = ir
+                    .iter()
+                    .map(|&b| spectrum[b] as f64 * inp.weights[b])
+                    .sum::<f64>()
+                    - a.iter().zip(&e_ir).map(|(a, e)| a * e).sum::<f64>();
+                (sum / (var * ir.len() as f64).sqrt() > SCREEN_Z).then_some((r, c))
+            },
+        )
+        .flatten()
         .collect();
     let table = if screened.is_empty() {
         None
