@@ -34,6 +34,7 @@ pub mod photometry;
 pub mod pipeline;
 pub mod recipe;
 pub mod render;
+pub mod report;
 pub mod results;
 pub mod thermal;
 pub mod units;

@@ -400,6 +400,8 @@ impl Job {
 pub struct Destination<'a> {
     pub dir: &'a Path,
     pub overwrite: bool,
+    /// Also write `report.html` (before `run.json`).
+    pub report: bool,
 }
 
 /// What a finished job reports to its caller.
@@ -467,9 +469,25 @@ pub fn run_cube(
         recipe: recipe.recipe(),
         warnings: &prepared.warnings,
     };
+    let report = |run: &str| -> Result<(), crate::atomic::WriteError> {
+        if !to.report {
+            return Ok(());
+        }
+        let spectra = report_spectra(&prepared, recipe);
+        let path = to.dir.join("report.html");
+        let (html, problems) = crate::report::render(to.dir, Some(run), Some(&spectra), None)
+            .map_err(|e| crate::atomic::WriteError::Io {
+                path: path.clone(),
+                error: std::io::Error::other(e.to_string()),
+            })?;
+        for p in problems {
+            progress.warn(&format!("report: {p}"));
+        }
+        crate::atomic::write_bytes(&path, html.as_bytes())
+    };
     at(
         "write",
-        results::write_folder(to.dir, &result, timings, threads),
+        results::write_folder(to.dir, &result, timings, threads, &report),
     )?;
     Ok(Outcome {
         ids: unmixed.ids.clone(),
@@ -477,4 +495,87 @@ pub fn run_cube(
         pixels: prepared.cube.info.pixels(),
         units: map,
     })
+}
+
+/// The cube as the solver saw it, for the report's inspector, named by what its samples are.
+fn report_spectra<'a>(p: &'a Prepared, recipe: &CheckedRecipe) -> crate::report::Spectra<'a> {
+    let quantity = p.cube.info.quantity.as_str();
+    let what = match recipe.photometry() {
+        Some(law) => format!("{quantity} divided by the {} law", law.name()),
+        None => quantity.to_string(),
+    };
+    crate::report::Spectra::of(&p.cube, &p.model, &p.weights.weights, what)
+}
+
+/// The report of a results folder read from disk (`thiomap report`, and `batch --report`
+/// on a folder that was already complete): the page and what it could not show. The
+/// inspector's spectra come from `cube` (or the input `run.json` names, looked for beside
+/// the results folder and in the working directory) when its SHA-256 matches the record.
+pub fn report_from_disk(
+    dir: &Path,
+    cube: Option<&Path>,
+) -> Result<(String, Vec<String>), crate::report::ReportError> {
+    let mut note = None;
+    let run: Option<serde_json::Value> = std::fs::read_to_string(dir.join("run.json"))
+        .ok()
+        .and_then(|t| serde_json::from_str(&t).ok());
+    let prepared = run.as_ref().and_then(|run| {
+        let name = run["inputs"][0]["name"].as_str()?;
+        let want = run["inputs"][0]["sha256"].as_str()?;
+        let candidates: Vec<std::path::PathBuf> = match cube {
+            Some(c) => vec![c.to_path_buf()],
+            None => {
+                let mut v = Vec::new();
+                if let Some(parent) = dir.parent() {
+                    v.push(parent.join(name));
+                }
+                v.push(std::path::PathBuf::from(name));
+                v
+            }
+        };
+        let Some(path) = candidates.iter().find(|p| p.is_file()) else {
+            note = Some(format!(
+                "the input cube {name} was not found (pass --cube PATH): the inspector shows \
+                 abundances only"
+            ));
+            return None;
+        };
+        match results::provenance::sha256_file(path) {
+            Ok(h) if h == want => {}
+            _ => {
+                note = Some(format!(
+                    "{} is not the cube of this run (its SHA-256 differs from run.json's): \
+                     the inspector shows abundances only",
+                    path.display()
+                ));
+                return None;
+            }
+        }
+        let recipe: crate::recipe::Recipe = serde_json::from_value(run["recipe"].clone()).ok()?;
+        let checked =
+            match crate::recipe::Draft::from_recipe(recipe).check(crate::recipe::Scope::Map) {
+                Ok(c) => c,
+                Err(e) => {
+                    note = Some(format!(
+                        "the run's recipe cannot be used again ({e}): no spectra"
+                    ));
+                    return None;
+                }
+            };
+        let mut t = Timings::default();
+        match prepare(path, None, &checked, &mut t) {
+            Ok(p) => Some((p, checked)),
+            Err(e) => {
+                note = Some(format!("{}: {e:#}: no spectra", path.display()));
+                None
+            }
+        }
+    });
+    match &prepared {
+        Some((p, checked)) => {
+            let spectra = report_spectra(p, checked);
+            crate::report::render(dir, None, Some(&spectra), None)
+        }
+        None => crate::report::render(dir, None, None, note.as_deref()),
+    }
 }

@@ -25,6 +25,9 @@ pub struct Row {
     pub hottest_k: Option<f64>,
     /// Why, when failed or missing.
     pub reason: Option<String>,
+    /// The results folder, when the cube has one (for the archive report's links).
+    #[serde(skip)]
+    pub folder: Option<PathBuf>,
 }
 
 /// One hot spot of one cube, for following a vent through time.
@@ -147,6 +150,7 @@ pub fn merge(dirs: &[PathBuf]) -> anyhow::Result<Archive> {
                     hot_spots: thermal["hot_spots"].as_u64().map(|n| n as usize),
                     hottest_k: thermal["hottest"]["peak_temperature_k"].as_f64(),
                     reason: None,
+                    folder: Some(path.clone()),
                 },
             );
         }
@@ -161,6 +165,7 @@ pub fn merge(dirs: &[PathBuf]) -> anyhow::Result<Archive> {
                 hot_spots: None,
                 hottest_k: None,
                 reason: Some(format!("{}: {}", f.stage, f.reason)),
+                folder: None,
             });
         }
         listed.extend(super::books::read_listed(dir)?);
@@ -178,6 +183,7 @@ pub fn merge(dirs: &[PathBuf]) -> anyhow::Result<Archive> {
             reason: Some(
                 "listed in a manifest, but no complete result and no failure was found".into(),
             ),
+            folder: None,
         });
     }
     Ok(Archive {

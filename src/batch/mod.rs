@@ -15,6 +15,7 @@
 
 pub mod books;
 pub mod merge;
+pub mod page;
 pub mod run;
 
 use std::path::{Component, Path, PathBuf};

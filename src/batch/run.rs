@@ -30,6 +30,8 @@ pub struct Plan {
     pub workers: usize,
     /// Threads of the global pool, recorded in each cube's `timings.json`.
     pub threads: usize,
+    /// Write each cube's `report.html`.
+    pub report: bool,
 }
 
 /// How a batch run went.
@@ -83,6 +85,13 @@ fn one(
     let name = entry.relative.display().to_string();
     let key = expected_key(&cube, recipe).map_err(|e| ("read".to_string(), format!("{e:#}")))?;
     if is_complete(&dir, &key) {
+        // A complete folder from a run without --report gains its page.
+        if plan.report && !dir.join("report.html").is_file() {
+            let (html, _) = pipeline::report_from_disk(&dir, Some(&cube))
+                .map_err(|e| ("report".to_string(), e.to_string()))?;
+            crate::atomic::write_bytes(&dir.join("report.html"), html.as_bytes())
+                .map_err(|e| ("report".to_string(), e.to_string()))?;
+        }
         return Ok(false);
     }
     let quiet = CubeProgress {
@@ -92,6 +101,7 @@ fn one(
     let to = Destination {
         dir: &dir,
         overwrite: true,
+        report: plan.report,
     };
     pipeline::run_cube(Job::Map, &cube, None, to, recipe, plan.threads, &quiet)
         .map_err(|e| (e.stage.to_string(), format!("{:#}", e.error)))?;

@@ -46,6 +46,9 @@ pub struct Args {
     /// Process shard K of N (1 ≤ K ≤ N), balanced by file size.
     #[arg(long, value_name = "K/N")]
     shard: Option<String>,
+    /// Also write each cube's report.html (a folder already complete gains one too).
+    #[arg(long)]
+    report: bool,
 }
 
 /// The batch's progress bar: cubes done, failures so far, warnings printed above it.
@@ -108,6 +111,7 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
         shard,
         workers,
         threads,
+        report: a.report,
     };
 
     let bar = ProgressBar::with_draw_target(

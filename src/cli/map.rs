@@ -16,7 +16,8 @@ use super::unmix::UnmixArgs;
     thiomap map demo-cubes/brimveil-globe-mapper96.fits --out results/globe\n  \
     thiomap map scene.fits --out r --units 6 --min-area 9\n  \
     thiomap map scene.fits --out r --recipe recipe.toml --seed 7\n  \
-    thiomap map hot.fits --out r --thermal two --sun-distance 4.8 --body-radius 1500\n\n\
+    thiomap map hot.fits --out r --thermal two --sun-distance 4.8 --body-radius 1500\n  \
+    thiomap map scene.fits --out r --report   (then open r/report.html)\n\n\
     Writes everything `unmix` writes plus units.fits, units.png, units-legend.svg, \
     true-colour.png, units.csv and units-spectra.svg; summary.json gains `units` and \
     `classes`. Where emission is fitted: thermal.fits and hotspots.csv/.json/.png, whose \
@@ -66,6 +67,10 @@ pub struct Args {
     /// fractions only.
     #[arg(long, value_name = "KM", allow_hyphen_values = true)]
     body_radius: Option<f64>,
+    /// Also write report.html: one self-contained page of the results (maps, units,
+    /// spectra, fit quality, hot spots, provenance, cautions) with a pixel inspector.
+    #[arg(long)]
+    report: bool,
 }
 
 impl Args {
@@ -130,7 +135,8 @@ pub fn run(args: Args) -> anyhow::Result<ExitCode> {
     let recipe = args.draft()?.check(Scope::Map)?;
     let a = &args.unmix;
     let threads = a.threads.init()?;
-    let to = a.destination()?;
+    let mut to = a.destination()?;
+    to.report = args.report;
     let bar = Bar::new();
     let done = pipeline::run_cube(Job::Map, &a.cube, a.hdu.clone(), to, &recipe, threads, &bar);
     bar.finish();

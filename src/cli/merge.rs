@@ -9,7 +9,8 @@ use thiomap::batch;
 
 /// Merge batch results into one archive table, its JSON and a chart.
 #[derive(Debug, clap::Args)]
-#[command(after_help = "Example:\n  thiomap merge results/ --out archive/\n\n\
+#[command(after_help = "Examples:\n  thiomap merge results/ --out archive/\n  \
+    thiomap merge results/ --out archive/ --report   (then open archive/archive.html)\n\n\
     Writes archive.csv (cube, status, area_<class>…, mean_<id>…, mean_rmse, hot_spots, \
     hottest_k), archive-hotspots.csv (every hot spot of every cube), archive.json \
     and archive-classes.svg; joins the shards' failure lists and lists every manifest entry \
@@ -21,6 +22,10 @@ pub struct Args {
     /// The folder for archive.csv, archive.json and the chart.
     #[arg(long, value_name = "FOLDER")]
     out: PathBuf,
+    /// Also write archive.html: the class areas by cube, the cubes with links to their
+    /// own report.html (batch --report), the failures and the hot-spot timeline.
+    #[arg(long)]
+    report: bool,
 }
 
 pub fn run(a: Args) -> anyhow::Result<ExitCode> {
@@ -35,6 +40,17 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     thiomap::atomic::write_bytes(&a.out.join("archive-hotspots.csv"), &spots)?;
     thiomap::results::write_json(&a.out.join("archive.json"), &archive)?;
     thiomap::atomic::write_bytes(&a.out.join("archive-classes.svg"), svg.as_bytes())?;
+    if a.report {
+        use sha2::Digest as _;
+        let json = std::fs::read(a.out.join("archive.json"))
+            .with_context(|| format!("{}: cannot read", a.out.join("archive.json").display()))?;
+        let sha: String = sha2::Sha256::digest(&json)
+            .iter()
+            .map(|b| format!("{b:02x}"))
+            .collect();
+        let html = thiomap::batch::page::page(&archive, &a.out, &svg, &sha);
+        thiomap::atomic::write_bytes(&a.out.join("archive.html"), html.as_bytes())?;
+    }
     let count = |s: &str| archive.rows.iter().filter(|r| r.status == s).count();
     eprintln!(
         "merged {} cubes into {}: {} ok, {} failed, {} missing",

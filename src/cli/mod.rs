@@ -10,6 +10,7 @@ mod library;
 mod map;
 mod merge;
 mod progress;
+mod report;
 mod unmix;
 
 use std::io::{self, Write};
@@ -32,7 +33,8 @@ use clap::{Parser, Subcommand};
     after_help = "Examples:\n  thiomap map demo-cubes/brimveil-globe-mapper96.fits --out results/globe\n  \
                   thiomap inspect demo-cubes/brimveil-globe-imager7.fits\n  \
                   thiomap library check --bands imager-7\n  \
-                  thiomap batch archive/ --out results/ --recipe recipe.toml"
+                  thiomap batch archive/ --out results/ --recipe recipe.toml\n  \
+                  thiomap report results/globe"
 )]
 pub struct Cli {
     #[command(subcommand)]
@@ -49,6 +51,7 @@ enum Command {
     Map(map::Args),
     Batch(batch::Args),
     Merge(merge::Args),
+    Report(report::Args),
 }
 
 /// Parses the command line and runs the command.
@@ -62,6 +65,7 @@ pub fn run() -> anyhow::Result<ExitCode> {
         Command::Map(args) => map::run(args),
         Command::Batch(args) => batch::run(args),
         Command::Merge(args) => merge::run(args),
+        Command::Report(args) => report::run(args),
         Command::Unmix(args) => unmix::run(args),
     }
 }

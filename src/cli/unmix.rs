@@ -252,6 +252,7 @@ impl UnmixArgs {
         Ok(Destination {
             dir: &self.out,
             overwrite: self.overwrite,
+            report: false,
         })
     }
 }

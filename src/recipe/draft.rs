@@ -53,6 +53,14 @@ pub enum Scope {
 }
 
 impl Draft {
+    /// A draft holding `recipe` (a run's recorded recipe, to check and use again).
+    pub fn from_recipe(recipe: Recipe) -> Draft {
+        Draft {
+            recipe,
+            origins: BTreeMap::new(),
+        }
+    }
+
     /// The defaults, overlaid with the recipe file when one is given.
     pub fn new(file: Option<&Path>) -> Result<Draft, RecipeError> {
         match file {

@@ -101,11 +101,15 @@ pub fn write_folder(
     r: &CubeResult,
     mut timings: Timings,
     threads: usize,
+    before_run: &dyn Fn(&str) -> Result<(), WriteError>,
 ) -> Result<(), WriteError> {
     timings.time("write", || write_products(dir, r))?;
     products::summary(dir, r)?;
     provenance::write_timings(dir, &timings, threads)?;
-    provenance::write_run_record(dir, r)
+    let run = provenance::run_record_text(r)?;
+    // The report (`--report`) goes here: after every other product, before run.json.
+    before_run(&run)?;
+    atomic::write_bytes(&dir.join("run.json"), run.as_bytes())
 }
 
 /// The data products, everything but the summary and the provenance.

@@ -420,8 +420,11 @@ pub fn units_spectra(dir: &Path, r: &CubeResult, map: &UnitMap) -> Result<(), Wr
         .abundance
         .as_slice()
         .expect("planes are in standard layout");
+    // The model's rows are scaled by the band weights (the weighted problem); the cube's
+    // samples are not, so the fit is drawn from the unweighted rows.
+    let w = &r.weights.weights;
     let e: Vec<f64> = (0..nb)
-        .flat_map(|b| (0..mat).map(move |j| r.model.e[(b, j)]))
+        .flat_map(|b| (0..mat).map(move |j| r.model.e[(b, j)] / w[b]))
         .collect();
     let mut panels = Vec::new();
     for u in &map.units {

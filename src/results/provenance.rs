@@ -122,6 +122,7 @@ pub fn run_record<'a>(r: &CubeResult<'a>) -> Result<RunRecord<'a>, WriteError> {
         recipe: r.recipe,
         conventions: serde_json::json!({
             "row_order": "row 0 is the first row stored; FITS pictures draw it at the bottom, others at the top",
+            "picture_row0": if r.cube.info.format.row0_at_bottom() { "bottom" } else { "top" },
             "nodata": "NaN in float planes",
             "quantity_declared": r.cube.info.quantity.as_str(),
             "quantity_assumed": "reflectance-factor",
@@ -130,9 +131,10 @@ pub fn run_record<'a>(r: &CubeResult<'a>) -> Result<RunRecord<'a>, WriteError> {
     })
 }
 
-/// Writes `run.json`: the last file of a results folder.
-pub fn write_run_record(dir: &Path, r: &CubeResult) -> Result<(), WriteError> {
-    super::write_json(&dir.join("run.json"), &run_record(r)?)
+/// The text of `run.json` (pretty JSON with a final newline), the last file of a results
+/// folder.
+pub fn run_record_text(r: &CubeResult) -> Result<String, WriteError> {
+    Ok(serde_json::to_string_pretty(&run_record(r)?).expect("output types serialise") + "\n")
 }
 
 /// Writes `timings.json`.

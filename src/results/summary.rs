@@ -35,6 +35,8 @@ pub struct UnmixSummary<'a> {
     pub subset_size: Option<usize>,
     pub bands_used: usize,
     pub condition_number: Option<f64>,
+    /// The model's closest column pairs by spectral angle (at most five).
+    pub closest_pairs: Vec<serde_json::Value>,
     pub enumerated_pixels: usize,
     /// The χ² test of the residuals: its probability, noise model and count.
     pub unexplained_test: &'a unmix::misfit::MisfitSummary,
@@ -93,6 +95,12 @@ pub fn unmix_summary<'a>(r: &CubeResult<'a>) -> UnmixSummary<'a> {
         subset_size: model.subset_size,
         bands_used: model.bands(),
         condition_number: model.condition.is_finite().then_some(model.condition),
+        closest_pairs: model
+            .closest_pairs
+            .iter()
+            .take(5)
+            .map(|p| serde_json::json!({"a": p.a, "b": p.b, "angle_deg": p.angle_deg}))
+            .collect(),
         enumerated_pixels: c.enumerated,
         unexplained_test: &out.misfit.summary,
         boundary_pixels: out.boundary.iter().filter(|b| **b).count(),

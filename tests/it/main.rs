@@ -12,6 +12,7 @@ mod library_cli;
 mod map_cli;
 mod misfit;
 mod out_folders;
+mod report;
 mod roundtrip;
 mod solar;
 mod support;

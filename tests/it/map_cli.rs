@@ -4,7 +4,7 @@ use std::path::{Path, PathBuf};
 
 use super::support::{f32_fits, stderr, thiomap};
 
-fn demo_cube(name: &str) -> PathBuf {
+pub(super) fn demo_cube(name: &str) -> PathBuf {
     Path::new(env!("CARGO_MANIFEST_DIR"))
         .join("demo-cubes")
         .join(name)
