@@ -70,8 +70,8 @@ pub fn page(archive: &Archive, out: &Path, chart_svg: &str, archive_sha256: &str
     );
     b += &format!(
         "<section id=\"areas\" aria-labelledby=\"areas-h\"><h2 id=\"areas-h\">Class areas by \
-         cube</h2><p class=\"how\">Each cube's area fraction per surface class, in the order \
-         of the table below (by time where cubes declare one).</p>{}</section>\n",
+         cube</h2><p class=\"how\">Each cube's area fraction per surface class, over time \
+         when every cube declares its observation time, else by cube name.</p>{}</section>\n",
         img(
             "image/svg+xml",
             chart_svg.as_bytes(),
@@ -79,11 +79,11 @@ pub fn page(archive: &Archive, out: &Path, chart_svg: &str, archive_sha256: &str
             "wide"
         )
     );
-    // The cubes, in time order where declared, then by name.
     let mut rows: Vec<&super::merge::Row> = archive.rows.iter().collect();
-    rows.sort_by(|a, b| {
-        (a.time.is_none(), &a.time, &a.cube).cmp(&(b.time.is_none(), &b.time, &b.cube))
-    });
+    // Like the chart: by observation time when every cube declares one, else by name.
+    if rows.iter().all(|r| r.time.is_some()) {
+        rows.sort_by(|a, b| a.time.cmp(&b.time).then(a.cube.cmp(&b.cube)));
+    }
     b += "<section id=\"cubes\" aria-labelledby=\"cubes-h\"><h2 id=\"cubes-h\">Cubes</h2>\
           <p class=\"how\">One row per cube: its status, time, mean fit RMSE, hot spots and a \
           link to its own report where one was written. Click a heading to sort.</p>\

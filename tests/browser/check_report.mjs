@@ -185,6 +185,17 @@ for (const p of pages) {
       await page.screenshot({ path: path.join(shots, `report-${slug}-${w}x${h}.png`) });
     }
   }
+  // Print on A4 (210 mm at 96 px per inch: 794 px, less the 14 mm margins): no picture,
+  // chart or table wider than the printable width. And the dark scheme loads cleanly.
+  await page.emulateMedia({ media: "print" });
+  await page.setViewportSize({ width: 688, height: 1000 });
+  const wide = await page.evaluate(() => Array.from(document.querySelectorAll("img, canvas, svg.chart, table"))
+    .filter((e) => e.getBoundingClientRect().right > document.documentElement.clientWidth + 1)
+    .map((e) => e.tagName + (e.alt ? ` (${e.alt.slice(0, 40)})` : "")));
+  check(wide.length === 0, `${p.name}: prints on A4 without cut maps ${wide.length ? JSON.stringify(wide) : ""}`);
+  await page.emulateMedia({ media: "screen", colorScheme: "dark" });
+  const bg = await page.evaluate(() => getComputedStyle(document.body).backgroundColor);
+  check(bg === "rgb(21, 23, 26)", `${p.name}: dark colour scheme applies (${bg})`);
   await page.close();
 }
 

@@ -148,6 +148,22 @@ fn report_command_reads_the_cube_checks_its_hash_and_says_what_is_missing() {
     let partial = page(&out);
     assert!(partial.contains("units.csv is missing: no unit table."));
     assert!(partial.contains("<section id=\"abundance\""));
+    // A folder from another tool version: rendered, with the difference said.
+    let run_json = std::fs::read_to_string(out.join("run.json")).unwrap();
+    let other = run_json.replacen(
+        &format!("\"version\": \"{}\"", env!("CARGO_PKG_VERSION")),
+        "\"version\": \"9.9.0\"",
+        1,
+    );
+    assert_ne!(other, run_json);
+    std::fs::write(out.join("run.json"), other).unwrap();
+    let run = thiomap(&["report", out.to_str().unwrap()]);
+    assert!(run.status.success(), "{}", stderr(&run));
+    assert!(
+        stderr(&run).contains("run.json was written by thiomap 9.9.0"),
+        "{}",
+        stderr(&run)
+    );
 }
 
 #[test]
