@@ -79,6 +79,9 @@
     var a = Math.abs(v);
     return a < 1e-3 || a >= 1e5 ? v.toExponential(n - 1) : v.toPrecision(n);
   }
+  // Abundances and errors below 10⁻⁶ are the solver's zeros: shown as such (the exact
+  // value stays in data-value).
+  function tiny(v, n) { return isFinite(v) && v !== 0 && Math.abs(v) < 1e-6 ? "< 1e-6" : fmt(v, n); }
   function esc(s) {
     return String(s).replace(/[&<>"']/g, function (c) {
       return { "&": "&amp;", "<": "&lt;", ">": "&gt;", '"': "&quot;", "'": "&#39;" }[c];
@@ -122,7 +125,7 @@
     for (var j = 0; j < np; j++) {
       var a = ab ? ab[g * np + j] : NaN, e = se ? se[g * np + j] : NaN;
       t += '<tr><th scope="row">' + esc(d.ids[j]) + '</th><td data-id="' + esc(d.ids[j]) + '" data-value="' + a + '">' +
-        fmt(a, 4) + '</td><td data-se="' + esc(d.ids[j]) + '" data-value="' + e + '">' + fmt(e, 2) + "</td></tr>";
+        tiny(a, 4) + '</td><td data-se="' + esc(d.ids[j]) + '" data-value="' + e + '">' + tiny(e, 2) + "</td></tr>";
     }
     t += "</tbody></table>";
     cols += "<div>" + (ab ? t : "<p>abundance.fits is missing.</p>") + "</div>";

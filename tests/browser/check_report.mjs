@@ -7,7 +7,8 @@
 // merge --report), each page must: load with no console error, page error or network
 // request (every request the page makes is recorded; only the page's own file:// URL is
 // allowed); decode every <img> (naturalWidth > 0); show in the pixel inspector, for three
-// pixels picked with the mouse, the abundances abundance.fits holds at those pixels (read
+// pixels picked with the mouse, the abundances and standard errors abundance.fits and
+// stderr.fits hold at those pixels (read
 // here with a FITS reader of our own, FITS Standard 4.0 §3–5: 2880-byte blocks, big-endian
 // IEEE floats); let the keyboard reach the inspector (Tab) and move it (arrow keys); and
 // show no horizontal overflow at 1280 × 800 and 390 × 844 (a phone). A results folder
@@ -130,6 +131,7 @@ for (const p of pages) {
     });
     check(meta.spectra, `${p.name}: the inspector has the cube's spectra`);
     const fits = readFits(path.join(p.dir, "abundance.fits"));
+    const errs = readFits(path.join(p.dir, "stderr.fits"));
     const [nx, ny] = fits.axes;
     const canvas = await page.$("#unitmap");
     await canvas.scrollIntoViewIfNeeded();
@@ -144,6 +146,7 @@ for (const p of pages) {
         return {
           row: +el.dataset.row, col: +el.dataset.col,
           values: Array.from(el.querySelectorAll("td[data-id]")).map((td) => [td.dataset.id, +td.dataset.value]),
+          errors: Array.from(el.querySelectorAll("td[data-se]")).map((td) => +td.dataset.value),
         };
       });
       const r = gy * meta.step, c = gx * meta.step;
@@ -153,9 +156,19 @@ for (const p of pages) {
         const d = Number.isNaN(want) && Number.isNaN(v) ? 0 : Math.abs(v - want);
         worst = Math.max(worst, Number.isNaN(d) ? Infinity : d);
       });
-      check(shown.row === r && shown.col === c && shown.values.length === meta.ids.length && worst === 0,
-        `${p.name}: inspector at row ${r}, column ${c} (shows row ${shown.row}, column ${shown.col}) gives abundance.fits's ${shown.values.length} values (worst difference ${worst})`);
+      shown.errors.forEach((v, j) => {
+        const want = errs.data[(j * ny + r) * nx + c];
+        const d = Number.isNaN(want) && Number.isNaN(v) ? 0 : Math.abs(v - want);
+        worst = Math.max(worst, Number.isNaN(d) ? Infinity : d);
+      });
+      check(shown.row === r && shown.col === c && shown.values.length === meta.ids.length && shown.errors.length === meta.ids.length && worst === 0,
+        `${p.name}: inspector at row ${r}, column ${c} (shows row ${shown.row}, column ${shown.col}) gives abundance.fits's and stderr.fits's ${shown.values.length} values (worst difference ${worst})`);
     }
+    // The unit table sorts by a column when its heading is clicked.
+    await page.click("#units-table th:nth-child(4) button");
+    const sorted = await page.evaluate(() => Array.from(document.querySelectorAll("#units-table tbody tr"))
+      .map((r) => +r.cells[3].textContent));
+    check(sorted.length > 1 && sorted.every((v, i) => i === 0 || sorted[i - 1] <= v), `${p.name}: the unit table sorts by pixels (${sorted.join(", ")})`);
     // The keyboard reaches the map and moves the inspector.
     await page.evaluate(() => document.activeElement && document.activeElement.blur());
     let reached = false;
