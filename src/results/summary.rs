@@ -23,6 +23,11 @@ pub struct UnmixSummary<'a> {
     /// The observation time the cube declares, if any.
     #[serde(skip_serializing_if = "Option::is_none")]
     pub observation_time: Option<String>,
+    /// The target and instrument the cube declares, if any.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub target: Option<String>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub instrument: Option<String>,
     pub endmembers: &'a [String],
     pub groups: serde_json::Value,
     pub per_member: Vec<unmix::PlaneStats>,
@@ -69,6 +74,8 @@ pub fn unmix_summary<'a>(r: &CubeResult<'a>) -> UnmixSummary<'a> {
     UnmixSummary {
         cube: super::provenance::file_name(&r.cube.info.path),
         observation_time: r.cube.info.about.time.clone(),
+        target: r.cube.info.about.target.clone(),
+        instrument: r.cube.info.about.instrument.clone(),
         endmembers: &out.ids,
         groups: serde_json::to_value(
             model

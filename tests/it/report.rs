@@ -259,3 +259,43 @@ fn merge_report_links_each_cube_page() {
     assert!(merged.join(link).is_file(), "{link} does not resolve");
     assert!(html.contains("1 cubes: 1 ok, 0 failed, 0 missing"));
 }
+
+#[test]
+fn the_overview_names_the_target_instrument_and_time_the_cube_declares() {
+    let dir = tempfile::tempdir().unwrap();
+    let cube = dir.path().join("declared.fits");
+    let samples: Vec<f32> = (0..6 * 5 * 12)
+        .map(|i| 0.2 + 0.3 * ((i * 37 % 101) as f32 / 101.0))
+        .collect();
+    std::fs::write(
+        &cube,
+        super::support::f32_fits(
+            [6, 5, 12],
+            &samples,
+            &[
+                ("OBJECT", "'Brimveil'"),
+                ("INSTRUME", "'<b>imager</b>'"),
+                ("DATE-OBS", "'2031-05-04T10:00'"),
+            ],
+        ),
+    )
+    .unwrap();
+    let out = dir.path().join("r");
+    let run = thiomap(&[
+        "unmix",
+        cube.to_str().unwrap(),
+        "--out",
+        out.to_str().unwrap(),
+    ]);
+    assert!(run.status.success(), "{}", stderr(&run));
+    let summary: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(out.join("summary.json")).unwrap()).unwrap();
+    assert_eq!(summary["target"], "Brimveil");
+    assert_eq!(summary["instrument"], "<b>imager</b>");
+    let run = thiomap(&["report", out.to_str().unwrap()]);
+    assert!(run.status.success(), "{}", stderr(&run));
+    let html = page(&out);
+    assert!(html.contains("<dt>Target</dt><dd>Brimveil</dd>"));
+    assert!(html.contains("<dt>Instrument</dt><dd>&lt;b&gt;imager&lt;/b&gt;</dd>"));
+    assert!(html.contains("<dt>Time</dt><dd>2031-05-04T10:00</dd>"));
+}
