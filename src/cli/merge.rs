@@ -41,13 +41,7 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     thiomap::results::write_json(&a.out.join("archive.json"), &archive)?;
     thiomap::atomic::write_bytes(&a.out.join("archive-classes.svg"), svg.as_bytes())?;
     if a.report {
-        use sha2::Digest as _;
-        let json = std::fs::read(a.out.join("archive.json"))
-            .with_context(|| format!("{}: cannot read", a.out.join("archive.json").display()))?;
-        let sha: String = sha2::Sha256::digest(&json)
-            .iter()
-            .map(|b| format!("{b:02x}"))
-            .collect();
+        let sha = thiomap::results::provenance::sha256_file(&a.out.join("archive.json"))?;
         let html = thiomap::batch::page::page(&archive, &a.out, &svg, &sha);
         thiomap::atomic::write_bytes(&a.out.join("archive.html"), html.as_bytes())?;
     }

@@ -43,7 +43,6 @@ pub struct Folder {
     pub abundance: Option<Planes>,
     pub stderr: Option<Planes>,
     pub rmse: Option<Array2<f32>>,
-    pub flags: Option<Array2<u8>>,
     pub labels: Option<Array2<i32>>,
     /// Pictures by file name (relative to the folder, `/`-separated).
     pub pictures: BTreeMap<String, Vec<u8>>,
@@ -101,7 +100,6 @@ impl Folder {
             abundance: None,
             stderr: None,
             rmse: None,
-            flags: None,
             labels: None,
             pictures: BTreeMap::new(),
             svgs: BTreeMap::new(),
@@ -114,7 +112,7 @@ impl Folder {
             None => f.text("run.json", "provenance and the inspector's cube"),
         };
         if let Some(t) = run_text {
-            f.run_sha256 = Some(hex(&sha2::Sha256::digest(t.as_bytes())));
+            f.run_sha256 = Some(format!("{:x}", sha2::Sha256::digest(t.as_bytes())));
             match serde_json::from_str::<serde_json::Value>(&t) {
                 Ok(v) => {
                     if v["tool"] != "thiomap" {
@@ -159,9 +157,6 @@ impl Folder {
         f.rmse = f
             .planes("fit-rmse.fits", "the RMSE histogram")
             .map(|p| p.index_axis_move(ndarray::Axis(2), 0));
-        f.flags = f
-            .planes("fit-flags.fits", "the fit-quality counts")
-            .map(|p| p.index_axis(ndarray::Axis(2), 0).mapv(|v| v as u8));
         f.labels = f
             .planes("units.fits", "the inspector's unit map")
             .map(|p| p.index_axis(ndarray::Axis(2), 0).mapv(|v| v as i32));
@@ -358,8 +353,4 @@ fn list_others(dir: &Path) -> Vec<String> {
 
 fn major_minor(v: &str) -> String {
     v.split('.').take(2).collect::<Vec<_>>().join(".")
-}
-
-pub(super) fn hex(bytes: &[u8]) -> String {
-    bytes.iter().map(|b| format!("{b:02x}")).collect()
 }

@@ -15,6 +15,8 @@
 //! escaping rules. Pictures reuse the results folder's renderers ([`crate::render`]).
 
 pub mod charts;
+mod cube;
+mod figures;
 mod folder;
 mod inspect;
 pub mod markup;
@@ -47,6 +49,6 @@ pub fn render(
 ) -> Result<(String, Vec<String>), ReportError> {
     let folder = Folder::read(dir, run_json)?;
     let insp = inspect::build(&folder, spectra, spectra_note);
-    let html = page::cube_page(&folder, &insp, spectra);
+    let html = cube::cube_page(&folder, &insp, spectra);
     Ok((html, folder.problems.clone()))
 }
