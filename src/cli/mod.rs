@@ -3,6 +3,7 @@
 
 mod batch;
 mod common;
+mod compare;
 mod convert;
 mod demo;
 mod inspect;
@@ -11,6 +12,7 @@ mod map;
 mod merge;
 mod progress;
 mod report;
+mod targets;
 mod unmix;
 
 use std::io::{self, Write};
@@ -34,7 +36,9 @@ use clap::{Parser, Subcommand};
                   thiomap inspect demo-cubes/brimveil-globe-imager7.fits\n  \
                   thiomap library check --bands imager-7\n  \
                   thiomap batch archive/ --out results/ --recipe recipe.toml\n  \
-                  thiomap report results/globe"
+                  thiomap report results/globe\n  \
+                  thiomap compare results/2031 results/2033 --out change\n  \
+                  thiomap targets results/2033 --since results/2031 --out targets"
 )]
 pub struct Cli {
     #[command(subcommand)]
@@ -52,6 +56,8 @@ enum Command {
     Batch(batch::Args),
     Merge(merge::Args),
     Report(report::Args),
+    Compare(compare::Args),
+    Targets(targets::Args),
 }
 
 /// Parses the command line and runs the command.
@@ -66,6 +72,8 @@ pub fn run() -> anyhow::Result<ExitCode> {
         Command::Batch(args) => batch::run(args),
         Command::Merge(args) => merge::run(args),
         Command::Report(args) => report::run(args),
+        Command::Compare(args) => compare::run(args),
+        Command::Targets(args) => targets::run(args),
         Command::Unmix(args) => unmix::run(args),
     }
 }

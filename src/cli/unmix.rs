@@ -72,7 +72,8 @@ pub struct UnmixArgs {
     #[arg(long)]
     pub residuals: bool,
     /// Also write covariance.fits: each pixel's full covariance of the reported planes
-    /// (upper triangle), which epoch comparison uses.
+    /// (upper triangle; `compare` uses it when stderr.fits carries no noise model, as in
+    /// subset mode).
     #[arg(long)]
     pub covariance: bool,
     /// False-alarm probability of the unexplained test: a pixel whose residual is this

@@ -92,12 +92,24 @@ struct TruthJson<'a> {
     hot_spot_pixels: Vec<[usize; 2]>,
     hot_spots: Vec<HotSpotOut>,
     parameters: serde_json::Value,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    epoch: Option<serde_json::Value>,
     noise: Vec<NoiseOut>,
     files: serde_json::Value,
 }
 
+/// The earlier epoch a later scene was made from.
+#[derive(Debug, Clone)]
+pub struct EpochOf {
+    /// The earlier cube's file name.
+    pub file: String,
+    pub sha256: String,
+}
+
 /// Writes the cube, truth planes and truth.json. `command` is the command line that
-/// regenerates the scene, recorded in truth.json.
+/// regenerates the scene, recorded in truth.json; `epoch_of` names the earlier epoch of a
+/// later scene.
+#[allow(clippy::too_many_arguments)]
 pub fn write_scene(
     scene: &Scene,
     params: &SceneParams,
@@ -106,6 +118,7 @@ pub fn write_scene(
     band_set: &str,
     library_version: &str,
     command: &str,
+    epoch_of: Option<&EpochOf>,
 ) -> Result<(), WriteError> {
     match format {
         CubeFormat::Fits => crate::cube::fits::write_cube(cube_path, &scene.cube)?,
@@ -115,7 +128,7 @@ pub fn write_scene(
     let files = scene_files(cube_path, format);
     let truth_fits = &files[files.len() - 2];
     let truth_json = &files[files.len() - 1];
-    write_truth_planes(truth_fits, scene)?;
+    write_truth_planes(truth_fits, scene, epoch_of.is_some())?;
     let t = &scene.truth;
     let hot: Vec<[usize; 2]> = t
         .hot
@@ -179,6 +192,22 @@ pub fn write_scene(
             "sub_observer_point_deg": [params.observer.0, params.observer.1],
             "quantity": "i-over-f",
         }),
+        epoch: epoch_of.map(|e| {
+            let spot = |h: &super::HotSpot| {
+                serde_json::json!({"row": h.row, "col": h.col,
+                    "temperature_k": h.temperature_k, "fraction": h.fraction})
+            };
+            serde_json::json!({
+                "earlier_cube": e.file,
+                "earlier_sha256": e.sha256,
+                "noise_seed": params.noise_seed,
+                "changes": params.changes.iter().map(|c| serde_json::json!({
+                    "name": c.name(), "bit": c.bit(), "what": c.describe()})).collect::<Vec<_>>(),
+                "changed_plane": "truth FITS extension CHANGED: per pixel the bits of the changes that altered its composition or its hot spots",
+                "stranger_plane": "truth FITS extension STRANGER: the cover of material outside the library; the abundance planes then sum to 1 minus it",
+                "hot_spots_off": t.hot_spots_off.iter().map(spot).collect::<Vec<_>>(),
+            })
+        }),
         noise: t
             .noise
             .iter()
@@ -201,7 +230,7 @@ pub fn write_scene(
     crate::atomic::write_bytes(truth_json, text.as_bytes())
 }
 
-fn write_truth_planes(path: &Path, scene: &Scene) -> Result<(), WriteError> {
+fn write_truth_planes(path: &Path, scene: &Scene, later: bool) -> Result<(), WriteError> {
     let t = &scene.truth;
     let mut cards = vec![Card::new(
         "CONTENT",
@@ -231,7 +260,7 @@ fn write_truth_planes(path: &Path, scene: &Scene) -> Result<(), WriteError> {
         therm[(h.row, h.col, 0)] = h.temperature_k as f32;
         therm[(h.row, h.col, 1)] = h.fraction as f32;
     }
-    let extensions = [
+    let mut extensions = vec![
         ext("UNITS", &t.labels),
         ext("CORE", &core),
         ext("HOTSPOT", &hot),
@@ -244,6 +273,14 @@ fn write_truth_planes(path: &Path, scene: &Scene) -> Result<(), WriteError> {
             ],
         }),
     ];
+    // A later epoch's truth of what changed (a first epoch's files stay as they were).
+    if later {
+        extensions.push(ext("CHANGED", &t.changed));
+        extensions.push(Extension::Image(ImageHdu {
+            data: ImageData::Plane(t.stranger.view()),
+            cards: vec![Card::new("EXTNAME", Value::Text("STRANGER".into()), "")],
+        }));
+    }
     let primary = ImageHdu {
         data: ImageData::Cube(t.abundance.view()),
         cards,
@@ -317,6 +354,8 @@ pub struct TruthFiles {
     pub labels: Array2<i16>,
     pub core: Array2<bool>,
     pub hot: Array2<bool>,
+    /// A later epoch's CHANGED bits per pixel (zeros for a first epoch).
+    pub changed: Array2<i16>,
     /// Groups as (group id, member ids).
     pub groups: Vec<(String, Vec<String>)>,
     pub unit_names: Vec<String>,
@@ -408,6 +447,11 @@ impl TruthFiles {
             labels: plane("UNITS")?,
             core: plane("CORE")?.mapv(|v| v != 0),
             hot: plane("HOTSPOT")?.mapv(|v| v != 0),
+            changed: if hdus.iter().any(|h| h.name().as_deref() == Some("CHANGED")) {
+                plane("CHANGED")?
+            } else {
+                Array2::zeros((rows, cols))
+            },
             groups,
             unit_names,
             json,

@@ -31,12 +31,20 @@
 //!   uniformly in a range (default 550–850 K) and the hot area fraction f log-uniformly in
 //!   another (default 10⁻⁴–10⁻³), at the Sun's distance (default [`SUN_DISTANCE_AU`],
 //!   recorded as `SUNDIST`); the truth lists each spot's T and f.
+//! - **Later epochs** (`changes`, `noise_seed`): the same world with changes overlaid
+//!   ([`world::Change`]); the truth marks the changed pixels.
 //!
 //! Randomness comes from one ChaCha8 stream seeded by `seed`, drawn in a fixed order, so
-//! reruns with the same seed are byte-identical.
+//! reruns with the same seed are byte-identical; a later epoch draws its noise from a
+//! stream of its own (`noise_seed`), the world's draws staying the earlier epoch's.
 
+mod epoch;
 pub mod files;
+mod shading;
 pub mod world;
+
+use epoch::{changed_bits, place_hot_spots, stranger_spectrum};
+use shading::Shading;
 
 use ndarray::{Array2, Array3};
 use rand::{Rng, SeedableRng};
@@ -81,6 +89,12 @@ pub struct SceneParams {
     pub observer: (f64, f64),
     /// Whether internal row 0 is drawn at the bottom (FITS) — north is kept up in pictures.
     pub row0_at_bottom: bool,
+    /// A later epoch's changes to the world (none for a first epoch).
+    pub changes: Vec<world::Change>,
+    /// The noise's own seed, for a later epoch: the world (shading, mismatch, hot spots)
+    /// stays the earlier epoch's, drawn from `seed`, while the noise is new. `None` draws
+    /// the noise from `seed`'s stream after the world, as a first epoch does.
+    pub noise_seed: Option<u64>,
 }
 
 impl Default for SceneParams {
@@ -100,6 +114,8 @@ impl Default for SceneParams {
             sun: (0.0, 30.0),
             observer: (0.0, 0.0),
             row0_at_bottom: true,
+            changes: Vec::new(),
+            noise_seed: None,
         }
     }
 }
@@ -210,6 +226,14 @@ pub struct Truth {
     pub hot: Array2<bool>,
     /// Each hot pixel's temperature and fraction.
     pub hot_spots: Vec<HotSpot>,
+    /// For a later epoch: the earlier epoch's hot spots that went out.
+    pub hot_spots_off: Vec<HotSpot>,
+    /// For a later epoch: per pixel, the bits ([`world::Change::bit`]) of the changes that
+    /// touched it; 0 everywhere for a first epoch.
+    pub changed: Array2<i16>,
+    /// The cover of material outside the library (the stranger patch), 0 elsewhere; the
+    /// abundances over the library's members then sum to 1 − this.
+    pub stranger: Array2<f32>,
     pub noise: Vec<BandNoise>,
     /// Groups `library check` reports for this band set (default angle).
     pub groups: Vec<Group>,
@@ -297,37 +321,6 @@ fn pixel_geometry(p: &SceneParams, r: usize, c: usize) -> Option<Pixel> {
     })
 }
 
-/// A smooth field in [0, 1] over the sphere: bilinear value noise on 5° cells.
-struct Shading {
-    grid: Vec<f64>,
-}
-
-impl Shading {
-    const NLON: usize = 72;
-    const NLAT: usize = 37;
-
-    fn new(rng: &mut ChaCha8Rng) -> Shading {
-        Shading {
-            grid: (0..Self::NLON * Self::NLAT).map(|_| rng.gen()).collect(),
-        }
-    }
-
-    fn at(&self, lat: f64, lon: f64) -> f64 {
-        let x = (lon.rem_euclid(360.0)) / 5.0;
-        let y = (lat + 90.0) / 5.0;
-        let (x0, y0) = (
-            x.floor() as usize % Self::NLON,
-            (y.floor() as usize).min(Self::NLAT - 2),
-        );
-        let (fx, fy) = (x - x.floor(), y - y0 as f64);
-        let x1 = (x0 + 1) % Self::NLON;
-        let g = |i: usize, j: usize| self.grid[j * Self::NLON + i];
-        let a = g(x0, y0) * (1.0 - fx) + g(x1, y0) * fx;
-        let b = g(x0, y0 + 1) * (1.0 - fx) + g(x1, y0 + 1) * fx;
-        a * (1.0 - fy) + b * fy
-    }
-}
-
 /// The deepest topographic shading: t runs from 1 − this to 1.
 pub const SHADING_DEPTH: f64 = 0.15;
 
@@ -362,6 +355,13 @@ pub fn generate(
     let mut abundance = Array3::<f32>::from_elem((rows, cols, nm), f32::NAN);
     let mut labels = Array2::<i16>::zeros((rows, cols));
     let mut transition = Array2::<bool>::from_elem((rows, cols), false);
+    let mut stranger = Array2::<f32>::zeros((rows, cols));
+    let mut changed = Array2::<i16>::zeros((rows, cols));
+    let stranger_e = if p.changes.contains(&world::Change::Stranger) {
+        Some(stranger_spectrum(library, bands)?)
+    } else {
+        None
+    };
     let mut brightness = Array2::<f64>::zeros((rows, cols));
     let mut planes: Backplanes = Backplane::ALL
         .iter()
@@ -372,13 +372,20 @@ pub fn generate(
             let Some(px) = pixel_geometry(p, r, c) else {
                 continue;
             };
-            let (w, trans) = world::unit_weights(px.lat, px.lon);
+            let (w, trans, cover) = if p.changes.is_empty() {
+                let (w, t) = world::unit_weights(px.lat, px.lon);
+                (w, t, 0.0)
+            } else {
+                world::epoch_weights(px.lat, px.lon, &p.changes)
+            };
             let a = world::abundances(&ids, &w);
             labels[(r, c)] = world::nearest_unit(&ids, &a) as i16;
             transition[(r, c)] = trans;
+            stranger[(r, c)] = cover as f32;
             for (j, v) in a.iter().enumerate() {
-                abundance[(r, c, j)] = *v as f32;
+                abundance[(r, c, j)] = (*v * (1.0 - cover)) as f32;
             }
+            changed[(r, c)] = changed_bits(&ids, px.lat, px.lon, &p.changes);
             let t = 1.0 - SHADING_DEPTH * shading.at(px.lat, px.lon);
             let (mu0, mu) = (
                 px.incidence.to_radians().cos(),
@@ -405,53 +412,50 @@ pub fn generate(
                 continue;
             }
             for b in 0..nb {
-                let mix: f64 = (0..nm)
+                let mut mix: f64 = (0..nm)
                     .map(|j| abundance[(r, c, j)] as f64 * e[(b, j)])
                     .sum();
+                if let Some(se) = &stranger_e {
+                    mix += stranger[(r, c)] as f64 * se[b];
+                }
                 signal[(r, c, b)] = brightness[(r, c)] * mix;
             }
         }
     }
 
-    // Hot spots on the active vent's sunlit floor.
+    // Hot spots on a vent's sunlit floor: Tolvar Kiln's, or Sesk Kiln's once its vents
+    // switch on (Tolvar's spots are then drawn as before, but only recorded as gone).
     let mut hot = Array2::<bool>::from_elem((rows, cols), false);
     let mut hot_spots = Vec::new();
-    if p.hot_spots > 0 {
-        let vent = world::unit_vector(world::ACTIVE_VENT.0, world::ACTIVE_VENT.1);
-        let mut candidates: Vec<(f64, usize, usize)> = Vec::new();
-        for r in 0..rows {
-            for c in 0..cols {
-                if let Some(px) = pixel_geometry(p, r, c) {
-                    let d = world::angle_deg(world::unit_vector(px.lat, px.lon), vent);
-                    if d < 6.0 && px.incidence < 70.0 && px.emission < 70.0 {
-                        candidates.push((d, r, c));
-                    }
-                }
+    let mut hot_spots_off = Vec::new();
+    let vents = p.changes.contains(&world::Change::Vents);
+    if p.hot_spots > 0 || vents {
+        if p.hot_spots > 0 {
+            let spots = place_hot_spots(p, world::ACTIVE_VENT, p.hot_spots, &mut rng)?;
+            if vents {
+                hot_spots_off = spots;
+            } else {
+                hot_spots = spots;
             }
         }
-        if candidates.len() < p.hot_spots {
-            return Err(DemoError::NoVentInView);
+        if vents {
+            let n = if p.hot_spots > 0 { p.hot_spots } else { 3 };
+            hot_spots = place_hot_spots(p, world::QUIET_VENT, n, &mut rng)?;
         }
         let sun = crate::library::solar::Sun::embedded();
-        for _ in 0..p.hot_spots {
-            let k = rng.gen_range(0..candidates.len());
-            let (_, r, c) = candidates.swap_remove(k);
-            hot[(r, c)] = true;
-            let (t0, t1) = p.hot_temperature_k;
-            let t_k = t0 + (t1 - t0) * rng.gen::<f64>();
-            let (lo, hi) = (p.hot_fraction.0.ln(), p.hot_fraction.1.ln());
-            let fraction = (lo + (hi - lo) * rng.gen::<f64>()).exp();
+        for h in &hot_spots {
+            hot[(h.row, h.col)] = true;
             for (b, band) in bands.bands().iter().enumerate() {
-                let unit = crate::thermal::band_iof(band, t_k, p.sun_distance_au, 1.0, sun)
-                    .ok_or_else(|| OutOfCoverage::solar(band, b, sun))?;
-                signal[(r, c, b)] += fraction * unit;
+                let unit =
+                    crate::thermal::band_iof(band, h.temperature_k, p.sun_distance_au, 1.0, sun)
+                        .ok_or_else(|| OutOfCoverage::solar(band, b, sun))?;
+                signal[(h.row, h.col, b)] += h.fraction * unit;
             }
-            hot_spots.push(HotSpot {
-                row: r,
-                col: c,
-                temperature_k: t_k,
-                fraction,
-            });
+        }
+        if vents {
+            for h in hot_spots.iter().chain(&hot_spots_off) {
+                changed[(h.row, h.col)] |= world::Change::Vents.bit();
+            }
         }
     }
 
@@ -481,6 +485,8 @@ pub fn generate(
         .map(|b| BandNoise::detector(mean_signal[b], gains[b], mean_signal[reference], p.snr))
         .collect();
     let mut data = Array3::<f32>::from_elem((rows, cols, nb), f32::NAN);
+    let mut own_noise = p.noise_seed.map(ChaCha8Rng::seed_from_u64);
+    let noise_rng = own_noise.as_mut().unwrap_or(&mut rng);
     for r in 0..rows {
         for c in 0..cols {
             if labels[(r, c)] == 0 {
@@ -488,12 +494,13 @@ pub fn generate(
             }
             for b in 0..nb {
                 let s = signal[(r, c, b)];
-                data[(r, c, b)] = (s + noise[b].sigma(s) * normal(&mut rng)) as f32;
+                data[(r, c, b)] = (s + noise[b].sigma(s) * normal(noise_rng)) as f32;
             }
         }
     }
 
-    let core = core_mask(&labels, &transition, &hot);
+    let mut core = core_mask(&labels, &transition, &hot);
+    core.zip_mut_with(&stranger, |k, s| *k &= *s == 0.0);
     let valid = labels.mapv(|l| l != 0);
     let cube = Cube {
         info: CubeInfo {
@@ -539,6 +546,9 @@ pub fn generate(
             core,
             hot,
             hot_spots,
+            hot_spots_off,
+            changed,
+            stranger,
             noise,
             groups,
         },

@@ -172,6 +172,112 @@ pub const FEATURES: [Feature; 7] = [
 
 /// The active vent (Tolvar Kiln's centre), where hot spots are placed.
 pub const ACTIVE_VENT: (f64, f64) = (8.0, -18.0);
+/// The quiet caldera (Sesk Kiln's centre), where a later epoch's changes may wake it.
+pub const QUIET_VENT: (f64, f64) = (-22.0, 30.0);
+
+/// A change a later epoch of the same world may carry (`thiomap demo --epoch-of`).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, PartialOrd, Ord, Hash)]
+pub enum Change {
+    /// A new red ring deposit (Ember Ring material) around Sesk Kiln, out to 14°, fading
+    /// over 4°, its floor left as it was.
+    Ring,
+    /// The polar frost edge retreats poleward from ±52° to ±58°.
+    Frost,
+    /// A new dark flow (Cinder Flows material) 6° wide, from 40° S 20° W to 25° S 2° W.
+    Flow,
+    /// A patch of material outside the library (see [`stranger_reflectance`]) within 6° of
+    /// 30° N 45° W, fading over 2°, covering 70 % of each pixel at its core.
+    Stranger,
+    /// Hot spots switch: those of Tolvar Kiln go out and as many light up on Sesk Kiln's
+    /// floor (three when the earlier epoch had none).
+    Vents,
+}
+
+impl Change {
+    pub const ALL: [Change; 5] = [
+        Change::Ring,
+        Change::Frost,
+        Change::Flow,
+        Change::Stranger,
+        Change::Vents,
+    ];
+
+    /// The name used in `--changes` and in truth.json.
+    pub fn name(self) -> &'static str {
+        match self {
+            Change::Ring => "ring",
+            Change::Frost => "frost",
+            Change::Flow => "flow",
+            Change::Stranger => "stranger",
+            Change::Vents => "vents",
+        }
+    }
+
+    /// Its bit in the truth's CHANGED plane.
+    pub fn bit(self) -> i16 {
+        1 << (self as i16)
+    }
+
+    /// One line for help texts and truth.json.
+    pub fn describe(self) -> &'static str {
+        match self {
+            Change::Ring => "a new red ring deposit around Sesk Kiln (22° S, 30° E)",
+            Change::Frost => "the polar frost edge retreats from ±52° to ±58°",
+            Change::Flow => "a new dark flow from 40° S 20° W to 25° S 2° W",
+            Change::Stranger => "a patch of material outside the library at 30° N, 45° W",
+            Change::Vents => "Tolvar Kiln's hot spots go out; Sesk Kiln's light up",
+        }
+    }
+
+    pub fn parse(name: &str) -> Option<Change> {
+        Change::ALL.into_iter().find(|c| c.name() == name)
+    }
+}
+
+/// The stranger patch: its centre, radius and blend (degrees) and its peak cover.
+const STRANGER: (f64, f64, f64, f64) = (30.0, -45.0, 6.0, 2.0);
+const STRANGER_COVER: f64 = 0.7;
+
+/// The reflectance of the stranger material at `um`: a fictional pale mineral with two
+/// deep absorptions (0.72 and 1.35 µm) no library member has. Invented for the demo.
+pub fn stranger_reflectance(um: f64) -> f64 {
+    let band = |c: f64, w: f64, d: f64| d * (-((um - c) / w).powi(2)).exp();
+    (0.62 - band(0.72, 0.09, 0.38) - band(1.35, 0.16, 0.42) + 0.04 * (um - 1.0)).clamp(0.02, 1.0)
+}
+
+/// The features of an epoch with `changes`, in overlay order.
+fn features_with(changes: &[Change]) -> Vec<Feature> {
+    let mut out: Vec<Feature> = FEATURES.to_vec();
+    if changes.contains(&Change::Frost) {
+        out[0].shape = Shape::Caps { lat_deg: 58.0 };
+    }
+    if changes.contains(&Change::Flow) {
+        out.push(Feature {
+            name: "new dark flow (later epoch)",
+            unit: FLOWS,
+            shape: Shape::Strip {
+                a: (-40.0, -20.0),
+                b: (-25.0, -2.0),
+                width_deg: 6.0,
+            },
+            blend_deg: 2.0,
+        });
+    }
+    if changes.contains(&Change::Ring) {
+        out.push(Feature {
+            name: "new Ember Ring of Sesk Kiln (later epoch)",
+            unit: RING,
+            shape: Shape::Disc {
+                lat: QUIET_VENT.0,
+                lon: QUIET_VENT.1,
+                radius_deg: 14.0,
+            },
+            blend_deg: 4.0,
+        });
+        out.push(FEATURES[4]);
+    }
+    out
+}
 
 /// A unit vector for (latitude, longitude) in degrees.
 pub fn unit_vector(lat: f64, lon: f64) -> [f64; 3] {
@@ -226,11 +332,38 @@ fn outside_deg(shape: Shape, p: [f64; 3], lat: f64) -> f64 {
 /// The composition at a point: per unit, its weight (summing to one), and whether the
 /// point lies in a transition zone.
 pub fn unit_weights(lat: f64, lon: f64) -> ([f64; 6], bool) {
+    weights_over(&FEATURES, lat, lon)
+}
+
+/// What a later epoch with `changes` holds at a point: the unit weights, whether it lies
+/// in a transition zone, and the stranger material's cover (the units share the rest).
+pub fn epoch_weights(lat: f64, lon: f64, changes: &[Change]) -> ([f64; 6], bool, f64) {
+    let (w, transition) = weights_over(&features_with(changes), lat, lon);
+    let mut stranger = 0.0;
+    let mut edge = false;
+    if changes.contains(&Change::Stranger) {
+        let (clat, clon, radius, blend) = STRANGER;
+        let d = angle_deg(unit_vector(lat, lon), unit_vector(clat, clon)) - radius;
+        stranger = STRANGER_COVER
+            * if d <= 0.0 {
+                1.0
+            } else if d < blend {
+                edge = true;
+                let t = 1.0 - d / blend;
+                t * t * (3.0 - 2.0 * t)
+            } else {
+                0.0
+            };
+    }
+    (w, transition || edge, stranger)
+}
+
+fn weights_over(features: &[Feature], lat: f64, lon: f64) -> ([f64; 6], bool) {
     let p = unit_vector(lat, lon);
     let mut w = [0.0; 6];
     w[PLAINS] = 1.0;
     let mut transition = false;
-    for f in FEATURES {
+    for f in features.iter().copied() {
         let d = outside_deg(f.shape, p, lat);
         let cover = if d <= 0.0 {
             1.0

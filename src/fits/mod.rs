@@ -14,6 +14,7 @@
 //! This module knows bytes and cards only; what a cube is lives in [`crate::cube`].
 
 pub mod header;
+pub mod image;
 pub mod write;
 
 use std::fs::File;

@@ -2,5 +2,6 @@
 //! unit spectra ([`units`]). The colour science they draw with is [`crate::colour`].
 
 pub mod maps;
+pub mod overlay;
 pub mod plot;
 pub mod units;

@@ -285,25 +285,7 @@ impl Folder {
 
 /// The primary image of a FITS file as (rows, cols, planes).
 fn read_image(path: &Path) -> Result<Planes, String> {
-    use crate::fits;
-    let src = fits::Source::open(path).map_err(|e| e.to_string())?;
-    let hdus = fits::scan(&src).map_err(|e| e.to_string())?;
-    let hdu = hdus.first().ok_or("no HDU")?;
-    hdu.check_within(src.len()).map_err(|e| e.to_string())?;
-    let axes = hdu.axes();
-    if axes.is_empty() || axes.len() > 3 {
-        return Err(format!("{} axes, expected 2 or 3", axes.len()));
-    }
-    let (nx, ny) = (axes[0] as usize, *axes.get(1).unwrap_or(&1) as usize);
-    let np = *axes.get(2).unwrap_or(&1) as usize;
-    let scaling = fits::Scaling::from_header(&hdu.header).map_err(|e| e.to_string())?;
-    let mut flat = vec![0f32; nx * ny * np];
-    let mut scratch = Vec::new();
-    fits::read_elements(&src, hdu, &scaling, 0, &mut flat, &mut scratch)
-        .map_err(|e| e.to_string())?;
-    Ok(Array3::from_shape_fn((ny, nx, np), |(y, x, p)| {
-        flat[(p * ny + y) * nx + x]
-    }))
+    crate::fits::image::read_primary(path).map(|i| i.data)
 }
 
 fn read_csv(text: &str) -> Result<CsvTable, String> {

@@ -14,6 +14,7 @@
 //! passes through [`page::esc`], which is easier to audit than a template language's
 //! escaping rules. Pictures reuse the results folder's renderers ([`crate::render`]).
 
+pub mod change;
 pub mod charts;
 mod cube;
 mod figures;
@@ -21,6 +22,7 @@ mod folder;
 mod inspect;
 pub mod markup;
 pub mod page;
+pub mod targets;
 
 pub use folder::{Folder, ReportError};
 pub use inspect::Spectra;
@@ -36,6 +38,7 @@ pub const CAUTIONS: &[&str] = &[
      vents, where SO2 and H2S gas, heat and unstable ground are hazards. Such decisions \
      defer to mission flight rules, local codes and licensed practice; use thiomap's \
      output as one input among the ones those require.",
+    crate::targets::CAUTION,
 ];
 
 /// The page for one results folder, as HTML text. `run_json` is the text of `run.json`

@@ -14,9 +14,12 @@
 //! ([`crate::atomic`]); this module computes nothing a result depends on: it turns the
 //! pipeline's data into bytes.
 
+pub mod change;
 pub mod products;
 pub mod provenance;
+pub mod read;
 pub mod summary;
+pub mod targets;
 
 use std::path::Path;
 

@@ -12,7 +12,7 @@ use crate::atomic::{self, WriteError};
 use crate::colour::hex;
 use crate::cube::CubeInfo;
 use crate::fits::header::{Card, Value};
-use crate::fits::write::{write_file, ImageData, ImageHdu};
+use crate::fits::write::{write_file, Extension, ImageData, ImageHdu};
 use crate::render;
 use crate::units::{rules::UNEXPLAINED, UnitMap};
 
@@ -103,25 +103,110 @@ fn failed(dir: &Path, name: &str, e: impl ToString) -> WriteError {
 }
 
 /// `abundance.fits`: one plane per id, materials renormalised, shade last.
+/// The cube's geometry backplanes ride along as image extensions named as the cube's
+/// (INCIDENCE, EMISSION, PHASE, LATITUDE, LONGITUDE; degrees), so that `compare` and
+/// `targets` find the geometry in the result.
 pub fn abundance_planes(dir: &Path, r: &CubeResult) -> Result<(), WriteError> {
-    write_planes(
-        &dir.join("abundance.fits"),
-        &r.unmixed.ids,
-        &r.unmixed.abundance,
+    let mut cards = common_cards(
         &r.cube.info,
         "abundance: materials sum to 1 without shade; shade last",
-    )
+    );
+    for (i, id) in r.unmixed.ids.iter().enumerate() {
+        cards.push(Card::new(
+            &format!("PLANE{}", i + 1),
+            Value::Text(id.clone()),
+            "",
+        ));
+    }
+    let primary = ImageHdu {
+        data: ImageData::Cube(r.unmixed.abundance.view()),
+        cards,
+    };
+    let extensions: Vec<Extension> = crate::backplane::Backplane::ALL
+        .iter()
+        .filter_map(|b| {
+            r.cube.backplanes.get(b).map(|plane| {
+                Extension::Image(ImageHdu {
+                    data: ImageData::Plane(plane.view()),
+                    cards: vec![
+                        Card::new("EXTNAME", Value::Text(b.extname().into()), ""),
+                        Card::new("BUNIT", Value::Text("deg".into()), ""),
+                    ],
+                })
+            })
+        })
+        .collect();
+    write_file(&dir.join("abundance.fits"), &primary, &extensions)
 }
 
 /// `stderr.fits`: the standard error of each abundance plane.
+///
+/// One extension, `NOISESCALE`, lets a reader rebuild each pixel's covariance for any
+/// passive set (`compare` needs the union of two epochs' sets): its data are each pixel's
+/// σ / Σa, and its header carries the model's Gram matrix G = EᵀE (band-weighted; GCOLS
+/// columns named COLn, Gi_j for i ≤ j, 1-based, to 16 digits), SUMTOONE and SHADECOL. The
+/// covariance of the reported planes on passive set P is then NOISESCALE² · J K_P Jᵀ, with
+/// K_P the top-left block of the inverse of [[G_PP, 1], [1ᵀ, 0]] (without the border when
+/// the sum is not constrained) and J the README's renormalisation. Written outside subset
+/// mode, whose errors are per-pixel mixtures.
 pub fn stderr_planes(dir: &Path, r: &CubeResult) -> Result<(), WriteError> {
-    write_planes(
-        &dir.join("stderr.fits"),
-        &r.unmixed.ids,
-        &r.unmixed.stderr(),
-        &r.cube.info,
-        "standard errors of the abundances",
-    )
+    let mut cards = common_cards(&r.cube.info, "standard errors of the abundances");
+    for (i, id) in r.unmixed.ids.iter().enumerate() {
+        cards.push(Card::new(
+            &format!("PLANE{}", i + 1),
+            Value::Text(id.clone()),
+            "",
+        ));
+    }
+    let data = r.unmixed.stderr();
+    let primary = ImageHdu {
+        data: ImageData::Cube(data.view()),
+        cards,
+    };
+    let m = r.model.columns();
+    if !(r.unmixed.factored() && r.model.subset_size.is_none() && m <= 16) {
+        return write_file(&dir.join("stderr.fits"), &primary, &[]);
+    }
+    let g = r.model.e.t().dot(&r.model.e);
+    let mut cards = vec![
+        Card::new(
+            "EXTNAME",
+            Value::Text("NOISESCALE".into()),
+            "sigma over the material sum",
+        ),
+        Card::new("GCOLS", Value::Integer(m as i64), "model columns"),
+        Card::new(
+            "SUMTOONE",
+            Value::Logical(r.model.solver.sum_to_one()),
+            "abundances constrained to sum to 1",
+        ),
+        Card::new(
+            "SHADECOL",
+            Value::Logical(r.model.shade),
+            "last column is shade",
+        ),
+    ];
+    for (i, id) in r.model.ids.iter().enumerate() {
+        cards.push(Card::new(
+            &format!("COL{}", i + 1),
+            Value::Text(id.clone()),
+            "",
+        ));
+    }
+    for i in 0..m {
+        for j in i..m {
+            cards.push(Card::new(
+                &format!("G{}_{}", i + 1, j + 1),
+                Value::Real(g[(i, j)]),
+                "",
+            ));
+        }
+    }
+    let extensions = [Extension::Image(ImageHdu {
+        data: ImageData::Plane(r.unmixed.errors.scale.view()),
+        cards,
+    })];
+    write_file(&dir.join("stderr.fits"), &primary, &extensions)
 }
 
 /// `covariance.fits` (with `--covariance`): each pixel's covariance of the reported planes,

@@ -154,6 +154,13 @@ impl UnmixOutput {
         self.boundary_columns[(r, c)] = 0;
     }
 
+    /// Whether the covariances come from one factor per passive set (not subset mode's
+    /// per-pixel mixtures), so that [`crate::unmix::Model::covariance_matrix`] of the full
+    /// set and `errors.scale` give each pixel's free-form covariance.
+    pub fn factored(&self) -> bool {
+        self.errors.mixture.is_none()
+    }
+
     /// The standard error of pixel (r, c) on plane j (NaN where not unmixed).
     pub fn stderr_at(&self, r: usize, c: usize, j: usize) -> f32 {
         match self.covariance_at(r, c) {

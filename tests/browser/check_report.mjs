@@ -3,8 +3,9 @@
 //
 // Usage: node tests/browser/check_report.mjs PATH/TO/thiomap WORK_DIR [SHOTS_DIR]
 //
-// For the three shipped demo cubes (map --report) and one merged archive (batch --report,
-// merge --report), each page must: load with no console error, page error or network
+// For the three shipped demo cubes (map --report), one merged archive (batch --report,
+// merge --report), and a pair of demo epochs (compare --report, targets --report), each
+// page must: load with no console error, page error or network
 // request (every request the page makes is recorded; only the page's own file:// URL is
 // allowed); decode every <img> (naturalWidth > 0); show in the pixel inspector, for three
 // pixels picked with the mouse, the abundances and standard errors abundance.fits and
@@ -81,6 +82,14 @@ for (const c of cubes.slice(1)) fs.copyFileSync(path.join(root, "demo-cubes", `$
 run(["batch", arch, "--out", path.join(work, "batch"), "--report", "--workers", "1"]);
 run(["merge", path.join(work, "batch"), "--out", path.join(work, "merged"), "--report"]);
 pages.push({ name: "merged archive", file: path.join(work, "merged", "archive.html"), inspector: false });
+// Two epochs: compare --report and targets --since --report (no inspector on these pages).
+const later = path.join(work, "later.fits");
+run(["demo", "--epoch-of", path.join(root, "demo-cubes", `${cubes[0]}.fits`), "--changes", "ring,stranger,flow", "--out", later]);
+run(["map", later, "--out", path.join(work, "later")]);
+run(["compare", path.join(work, cubes[0]), path.join(work, "later"), "--out", path.join(work, "change"), "--report"]);
+pages.push({ name: "change", file: path.join(work, "change", "report.html"), inspector: false });
+run(["targets", path.join(work, "later"), "--since", path.join(work, cubes[0]), "--out", path.join(work, "targets"), "--report"]);
+pages.push({ name: "targets", file: path.join(work, "targets", "report.html"), inspector: false });
 // Hostile text: a unit label that is markup.
 const hostile = path.join(work, "hostile");
 fs.cpSync(path.join(work, cubes[0]), hostile, { recursive: true });

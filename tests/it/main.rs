@@ -3,6 +3,7 @@
 
 mod bad_input;
 mod batch;
+mod change;
 mod cli;
 mod coverage;
 mod demo;
@@ -16,6 +17,7 @@ mod report;
 mod roundtrip;
 mod solar;
 mod support;
+mod targets;
 mod thermal;
 mod units;
 mod unmix;
