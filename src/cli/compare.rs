@@ -105,7 +105,9 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
         later_row0_at_bottom: l.row0_at_bottom,
     };
     let png = results::change::change_png(&c, &run);
-    results::prepare(&a.out, a.overwrite)?;
+    // Cubes were mapped into DIR/earlier and DIR/later: the folder is ours to complete.
+    let mapped = !a.earlier.is_dir() || !a.later.is_dir();
+    results::prepare(&a.out, a.overwrite || mapped)?;
     if a.report {
         // The page is written before run.json, which marks the folder complete.
         let page = thiomap::report::change::page(&c, &run, &png);

@@ -21,7 +21,8 @@ use thiomap::targets::{self, keepout, Constraints, Profile, Status};
     score and its components, the key number with its error, a reason in one sentence, the \
     constraint status), targets.png (numbered ranks over the true colour, keep-out areas \
     striped) and run.json (last). The shipped scoring profile is \
-    spectra-lib/targets-profile.toml, documented line by line; --profile overrides its keys.\n\n\
+    spectra-lib/targets-profile.toml, documented line by line (`thiomap targets \
+    --default-profile > mine.toml` prints it); --profile overrides its keys.\n\n\
     --keep-out takes a TOML list of circles ([[circle]] lat_deg, lon_deg, radius_deg, name), \
     a PNG mask drawn like the result's pictures (light = keep out; the cube's size or a whole \
     multiple of it), or a 2-D FITS mask in the cube's row order (non-zero = keep out).\n\n\
@@ -31,15 +32,19 @@ use thiomap::targets::{self, keepout, Constraints, Profile, Status};
     vents defers to local codes and licensed practice (SO2 and H2S gas, heat, unstable ground).")]
 pub struct Args {
     /// The results folder of `map` to find targets in.
-    #[arg(value_name = "RESULT")]
-    result: PathBuf,
+    #[arg(value_name = "RESULT", required_unless_present = "default_profile")]
+    result: Option<PathBuf>,
     /// An earlier results folder of the same area: significant change since it becomes a
     /// candidate (compared as `thiomap compare` does, at its defaults).
     #[arg(long, value_name = "EARLIER_RESULT")]
     since: Option<PathBuf>,
     /// The folder to write.
-    #[arg(long, value_name = "DIR")]
-    out: PathBuf,
+    #[arg(long, value_name = "DIR", required_unless_present = "default_profile")]
+    out: Option<PathBuf>,
+    /// Print the shipped scoring profile (commented line by line) and exit: a start for
+    /// your own `--profile`.
+    #[arg(long)]
+    default_profile: bool,
     /// A scoring profile (TOML) over the shipped one.
     #[arg(long, value_name = "FILE")]
     profile: Option<PathBuf>,
@@ -67,7 +72,14 @@ pub struct Args {
 }
 
 pub fn run(a: Args) -> anyhow::Result<ExitCode> {
-    results::check_folder(&a.out, a.overwrite)?;
+    if a.default_profile {
+        super::print_stdout(targets::profile::DEFAULT_TEXT)?;
+        return Ok(ExitCode::SUCCESS);
+    }
+    let (Some(result), Some(out)) = (a.result.clone(), a.out.clone()) else {
+        bail!("give RESULT and --out DIR");
+    };
+    results::check_folder(&out, a.overwrite)?;
     let profile = match &a.profile {
         Some(p) => {
             let text = std::fs::read_to_string(p)
@@ -86,7 +98,7 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     if !angles_ok {
         bail!("--max-emission must lie in (0, 90] and --max-incidence in (0, 180] degrees");
     }
-    let r = read_result(&a.result)?;
+    let r = read_result(&result)?;
     let e = &r.epoch;
     let keep_out = match &a.keep_out {
         Some(p) => Some(read_keep_out(p, e, r.row0_at_bottom)?),
@@ -97,7 +109,7 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     let mut inputs = vec![(
         "result",
         e.name.clone(),
-        results::provenance::sha256_file(&a.result.join("run.json"))?,
+        results::provenance::sha256_file(&result.join("run.json"))?,
     )];
     let changed = match &a.since {
         Some(dir) => {
@@ -119,7 +131,7 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
         }
         None => None,
     };
-    let temperature = read_temperature(&a.result, e.units.dim())?;
+    let temperature = read_temperature(&result, e.units.dim())?;
     let units: Vec<(i16, String, f64)> = r
         .units
         .iter()
@@ -153,12 +165,12 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     };
     let png =
         results::targets::targets_png(e, &list, constraints.keep_out.as_ref(), r.row0_at_bottom);
-    results::prepare(&a.out, a.overwrite)?;
+    results::prepare(&out, a.overwrite)?;
     if a.report {
         let page = thiomap::report::targets::page(&list, &run, &png);
-        thiomap::atomic::write_bytes(&a.out.join("report.html"), page.as_bytes())?;
+        thiomap::atomic::write_bytes(&out.join("report.html"), page.as_bytes())?;
     }
-    results::targets::write_targets(&a.out, &list, &run, &png)?;
+    results::targets::write_targets(&out, &list, &run, &png)?;
     eprintln!("CAUTION: {}", targets::CAUTION);
     let mut excluded = 0;
     for t in &list {
@@ -192,7 +204,7 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
             excluded - 5
         );
     }
-    eprintln!("wrote {}", a.out.display());
+    eprintln!("wrote {}", out.display());
     Ok(ExitCode::SUCCESS)
 }
 

@@ -65,6 +65,14 @@ pub fn read_result(dir: &Path) -> Result<Read, ReadError> {
         return Err(ReadError::NotAResult(dir.to_path_buf()));
     }
     let run = json(&run_path)?;
+    if let Some(cmd @ ("compare" | "targets")) = run["command"].as_str() {
+        return Err(bad(
+            dir,
+            format!(
+                "a `{cmd}` folder, not a results folder of `map` (give the folder `map` wrote)"
+            ),
+        ));
+    }
     let summary = json(&dir.join("summary.json"))?;
     let planes: Vec<String> = summary["endmembers"]
         .as_array()

@@ -298,3 +298,39 @@ fn bad_pairs_are_refused_with_one_line_and_nothing_written() {
     assert_eq!(run.status.code(), Some(2));
     assert!(stderr(&run).contains("--fdr 1.5"), "{}", stderr(&run));
 }
+
+#[test]
+fn two_cubes_are_mapped_with_one_recipe_first() {
+    let dir = tempfile::tempdir().unwrap();
+    let e = earlier_globe(dir.path(), "200", "61");
+    let l = dir.path().join("l61.fits");
+    let run = thiomap(&[
+        "demo",
+        "--epoch-of",
+        e.to_str().unwrap(),
+        "--changes",
+        "ring",
+        "--out",
+        l.to_str().unwrap(),
+    ]);
+    assert!(run.status.success(), "{}", stderr(&run));
+    let out = dir.path().join("c");
+    let run = compare(&e, &l, &out, &[]);
+    assert!(run.status.success(), "{}", stderr(&run));
+    for f in [
+        "earlier/run.json",
+        "later/run.json",
+        "change.fits",
+        "run.json",
+    ] {
+        assert!(out.join(f).is_file(), "{f}");
+    }
+    // A compare folder is not a result to compare.
+    let run = compare(&out.join("earlier"), &out, &dir.path().join("again"), &[]);
+    assert_eq!(run.status.code(), Some(2));
+    assert!(
+        stderr(&run).contains("a `compare` folder"),
+        "{}",
+        stderr(&run)
+    );
+}

@@ -219,3 +219,23 @@ fn bad_profiles_and_keep_outs_are_refused_with_nothing_written() {
         assert!(!out.exists(), "nothing written");
     }
 }
+
+#[test]
+fn the_default_profile_prints_and_reads_back_as_the_shipped_one() {
+    let run = thiomap(&["targets", "--default-profile"]);
+    assert!(run.status.success(), "{}", stderr(&run));
+    let text = String::from_utf8(run.stdout).unwrap();
+    assert!(
+        text.contains("activity = 4.0") && text.contains("# "),
+        "commented: {text}"
+    );
+    let p = thiomap::targets::Profile::parse("printed", &text).unwrap();
+    let shipped = thiomap::targets::Profile::embedded();
+    assert_eq!((p.weights, p.scales), (shipped.weights, shipped.scales));
+    let run = thiomap(&["targets"]);
+    assert_eq!(
+        run.status.code(),
+        Some(2),
+        "RESULT and --out are needed otherwise"
+    );
+}
