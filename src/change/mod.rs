@@ -134,7 +134,7 @@ pub enum ChangeError {
 /// A model's Gram matrix G = EᵀE over its columns (materials, then shade when used).
 #[derive(Debug, Clone, PartialEq)]
 pub struct Gram {
-    pub g: DMatrix<f64>,
+    pub g: ndarray::Array2<f64>,
     pub sum_to_one: bool,
     pub shade_column: bool,
 }
@@ -320,22 +320,23 @@ pub fn compare(
         return Err(ChangeError::NoOverlap);
     }
 
-    // The covariance factor of every union of passive sets that occurs, per model.
-    let mut sets: std::collections::HashMap<(usize, u32), Option<Vec<f64>>> = Default::default();
-    for r in 0..rows {
-        for c in 0..cols {
-            if !tested[(r, c)] {
-                continue;
-            }
-            let mask = passive(&a, r, c) | passive(&b, r, c);
-            for e in [&a, &b] {
-                if let Some((gram, _)) = &e.noise {
-                    sets.entry((gram_key(gram), mask))
+    // The covariance factor of every union of passive sets that occurs, per epoch (each
+    // epoch holds its own model's Gram matrix).
+    type Factors = std::collections::HashMap<u32, Option<Vec<f64>>>;
+    let factors = |e: &Epoch| -> Factors {
+        let mut out = Factors::new();
+        if let Some((gram, _)) = &e.noise {
+            for ((r, c), t) in tested.indexed_iter() {
+                if *t {
+                    let mask = passive(&a, r, c) | passive(&b, r, c);
+                    out.entry(mask)
                         .or_insert_with(|| test::set_covariance(gram, mask));
                 }
             }
         }
-    }
+        out
+    };
+    let (factors_a, factors_b) = (factors(&a), factors(&b));
 
     // The test per cell, in parallel by row (each cell's numbers depend on it alone).
     let per_row: Vec<Vec<CellTest>> = (0..rows)
@@ -350,11 +351,9 @@ pub fn compare(
                         .map(|j| b.abundance[(r, c, j)] as f64 - a.abundance[(r, c, j)] as f64)
                         .collect();
                     let mask = passive(&a, r, c) | passive(&b, r, c);
-                    let of = |e: &Epoch| {
+                    let of = |e: &Epoch, factors: &Factors| {
                         if let (Some((gram, scale)), false) = (&e.noise, e.thermal[(r, c)]) {
-                            if let Some(k) =
-                                sets.get(&(gram_key(gram), mask)).and_then(|k| k.as_ref())
-                            {
+                            if let Some(k) = factors.get(&mask).and_then(|k| k.as_ref()) {
                                 return union_covariance(e, gram, k, scale[(r, c)] as f64, r, c);
                             }
                         }
@@ -367,7 +366,7 @@ pub fn compare(
                             ),
                         }
                     };
-                    let cov = of(&a) + of(&b);
+                    let cov = of(&a, &factors_a) + of(&b, &factors_b);
                     let (chi2, dof) = test::chi_square(&delta, &cov);
                     let var: Vec<f32> = (0..m).map(|j| cov[(j, j)].max(0.0) as f32).collect();
                     (chi2, dof, delta.iter().map(|v| *v as f32).collect(), var)
@@ -484,12 +483,6 @@ pub fn compare(
         },
         later: b,
     })
-}
-
-/// Which model a Gram matrix is (the epochs' models are told apart by address: each
-/// epoch holds its own).
-fn gram_key(g: &Gram) -> usize {
-    g as *const Gram as usize
 }
 
 /// Pixel (r, c)'s passive set over the model's columns: the planes that are not zero

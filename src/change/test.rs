@@ -54,39 +54,12 @@ pub fn rebuilt_covariance(var: &[f64]) -> DMatrix<f64> {
     &p * d * &p
 }
 
-/// The covariance factor K of passive set `mask` (bit j: column j): the top-left block of
-/// the inverse of the bordered system [[G_PP, 1], [1ᵀ, 0]] (without the border when the sum
-/// is not constrained), zero outside P; `None` when the system is singular (the same rule
-/// as the solver's, relative singular value below 10⁻¹²). M × M, row-major.
+/// The covariance factor K of passive set `mask` (bit j: column j): the solver's own
+/// ([`crate::unmix::model::set_covariance`], the top-left block of the inverse of
+/// [[G_PP, 1], [1ᵀ, 0]], without the border when the sum is not constrained), zero outside
+/// P; `None` when the system is singular. M × M, row-major.
 pub fn set_covariance(gram: &super::Gram, mask: u32) -> Option<Vec<f64>> {
-    let m = gram.g.nrows();
-    let p: Vec<usize> = (0..m).filter(|i| mask & (1 << i) != 0).collect();
-    let k = p.len();
-    if k == 0 {
-        return None;
-    }
-    let size = k + gram.sum_to_one as usize;
-    let z = DMatrix::from_fn(size, size, |i, j| match (i < k, j < k) {
-        (true, true) => gram.g[(p[i], p[j])],
-        (true, false) | (false, true) => 1.0,
-        (false, false) => 0.0,
-    });
-    let sv = z.clone().singular_values();
-    let (max, min) = (
-        sv.max(),
-        sv.iter().fold(f64::INFINITY, |a, b| a.min(b.abs())),
-    );
-    if min.is_nan() || min <= max * 1e-12 {
-        return None;
-    }
-    let zi = z.try_inverse()?;
-    let mut out = vec![0.0; m * m];
-    for (r, &pi) in p.iter().enumerate() {
-        for (c, &pj) in p.iter().enumerate() {
-            out[pi * m + pj] = zi[(r, c)];
-        }
-    }
-    Some(out)
+    crate::unmix::model::set_covariance(&gram.g, mask, gram.sum_to_one)
 }
 
 /// The upper-tail probability of χ² with `dof` degrees of freedom.

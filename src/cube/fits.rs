@@ -348,8 +348,9 @@ fn locate(index: &[f64], v: f64) -> Option<f64> {
     (index.len() == 1 && index[0] == v).then_some(1.0)
 }
 
-/// Keywords of the spatial WCS (axes 1 and 2), copied through to outputs.
-fn spatial_wcs_cards(h: &Header) -> Vec<Card> {
+/// Keywords of the spatial WCS (axes 1 and 2), copied through to outputs (and compared by
+/// `compare` to tell whether two results share a grid).
+pub(crate) fn spatial_wcs_cards(h: &Header) -> Vec<Card> {
     const SINGLE: [&str; 9] = [
         "WCSNAME", "RADESYS", "RADECSYS", "EQUINOX", "LONPOLE", "LATPOLE", "MJDREF", "DATEREF",
         "WCSAXES",

@@ -36,21 +36,10 @@ pub struct Read {
     pub planes: Vec<String>,
     pub run: serde_json::Value,
     pub summary: serde_json::Value,
-    /// `hotspots.csv` rows as (lat, lon, peak T, its error) per spot, when present.
-    pub hot_spots: Vec<HotSpotRow>,
     /// Stored row 0 is drawn at the bottom in pictures.
     pub row0_at_bottom: bool,
     /// Unit id → (label, class), from `units.csv`.
     pub units: Vec<(i16, String, String, f64)>,
-}
-
-/// One row of `hotspots.csv`.
-#[derive(Debug, Clone, PartialEq)]
-pub struct HotSpotRow {
-    pub row: usize,
-    pub col: usize,
-    pub peak_k: f64,
-    pub peak_k_stderr: Option<f64>,
 }
 
 fn json(path: &Path) -> Result<serde_json::Value, ReadError> {
@@ -203,11 +192,8 @@ pub fn read_result(dir: &Path) -> Result<Read, ReadError> {
                 .map(|b| (b, image.data.index_axis_move(Axis(2), 0)))
         })
         .collect();
-    let wcs = ab
-        .header
-        .cards
+    let wcs = crate::cube::fits::spatial_wcs_cards(&ab.header)
         .iter()
-        .filter(|c| is_spatial_wcs(&c.key))
         .map(format_card)
         .collect();
     let row0_at_bottom = run["conventions"]["picture_row0"].as_str() == Some("bottom");
@@ -237,7 +223,6 @@ pub fn read_result(dir: &Path) -> Result<Read, ReadError> {
             rgb,
         },
         planes,
-        hot_spots: read_hot_spots(&dir.join("hotspots.csv")),
         units: read_units(&dir.join("units.csv")),
         run,
         summary,
@@ -260,7 +245,7 @@ fn noise_model(
         return None;
     }
     let flag = |k: &str| matches!(h.get(k), Some(crate::fits::header::Value::Logical(true)));
-    let mut g = nalgebra::DMatrix::<f64>::zeros(m, m);
+    let mut g = ndarray::Array2::<f64>::zeros((m, m));
     for i in 0..m {
         for j in i..m {
             let v = h.f64(&format!("G{}_{}", i + 1, j + 1))?;
@@ -278,20 +263,6 @@ fn noise_model(
     ))
 }
 
-fn is_spatial_wcs(key: &str) -> bool {
-    const PER_AXIS: [&str; 6] = ["CTYPE", "CUNIT", "CRVAL", "CRPIX", "CDELT", "CROTA"];
-    PER_AXIS
-        .iter()
-        .any(|p| key == format!("{p}1") || key == format!("{p}2"))
-        || [
-            "CD1_1", "CD1_2", "CD2_1", "CD2_2", "PC1_1", "PC1_2", "PC2_1", "PC2_2",
-        ]
-        .contains(&key)
-        || ["WCSNAME", "RADESYS", "EQUINOX", "LONPOLE", "LATPOLE"].contains(&key)
-        || key.starts_with("PV1_")
-        || key.starts_with("PV2_")
-}
-
 /// The true colour as (row, col, channel) in internal row order, when its size is a whole
 /// multiple of the cube's.
 fn read_true_colour(path: &Path, rows: usize, cols: usize, flip: bool) -> Option<Array3<f32>> {
@@ -307,37 +278,6 @@ fn read_true_colour(path: &Path, rows: usize, cols: usize, flip: bool) -> Option
         let y = if flip { rows - 1 - r } else { r };
         img.get_pixel((c * f + f / 2) as u32, (y * f + f / 2) as u32)[k] as f32
     }))
-}
-
-fn read_hot_spots(path: &Path) -> Vec<HotSpotRow> {
-    let Ok(text) = std::fs::read_to_string(path) else {
-        return Vec::new();
-    };
-    let body: String = text
-        .lines()
-        .filter(|l| !l.starts_with('#'))
-        .collect::<Vec<_>>()
-        .join("\n");
-    let mut r = csv::Reader::from_reader(body.as_bytes());
-    let Ok(h) = r.headers().cloned() else {
-        return Vec::new();
-    };
-    let col = |n: &str| h.iter().position(|x| x == n);
-    let (Some(ri), Some(ci), Some(ti)) = (col("row"), col("col"), col("peak_temperature_k")) else {
-        return Vec::new();
-    };
-    let ei = col("peak_temperature_k_stderr");
-    r.records()
-        .flatten()
-        .filter_map(|rec| {
-            Some(HotSpotRow {
-                row: rec.get(ri)?.parse().ok()?,
-                col: rec.get(ci)?.parse().ok()?,
-                peak_k: rec.get(ti)?.parse().ok()?,
-                peak_k_stderr: ei.and_then(|i| rec.get(i)?.parse().ok()),
-            })
-        })
-        .collect()
 }
 
 fn read_units(path: &Path) -> Vec<(i16, String, String, f64)> {

@@ -501,6 +501,14 @@ impl SolutionMap {
     }
 }
 
+/// The covariance factor K of passive set `mask` from a Gram matrix `g` (M × M, row-major,
+/// zero outside the set), or `None` when the set's system is singular: what
+/// [`Model::covariance_matrix`] gives, for callers that hold only G (`compare`, from a
+/// results folder).
+pub(crate) fn set_covariance(g: &Array2<f64>, mask: u32, sum_to_one: bool) -> Option<Vec<f64>> {
+    solution_map(g, mask, sum_to_one).map(|s| s.cov)
+}
+
 /// The solution map of passive set `mask`; `None` when its system is singular.
 fn solution_map(g: &Array2<f64>, mask: u32, sum_to_one: bool) -> Option<SolutionMap> {
     let m = g.nrows();
