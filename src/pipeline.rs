@@ -225,10 +225,25 @@ pub fn weighted_model(
 /// Multiplies (or, `invert`, divides) each band of `data` (rows × cols × bands) by its
 /// weight.
 pub fn scale_bands(data: &mut ndarray::Array3<f32>, weights: &[f64], invert: bool) {
-    for (b, &w) in weights.iter().enumerate() {
-        let f = if invert { 1.0 / w } else { w } as f32;
-        data.index_axis_mut(ndarray::Axis(2), b)
-            .mapv_inplace(|v| v * f);
+    use rayon::prelude::*;
+    let f: Vec<f32> = weights
+        .iter()
+        .map(|&w| if invert { 1.0 / w } else { w } as f32)
+        .collect();
+    let nb = f.len();
+    match data.as_slice_mut() {
+        // Spectra are contiguous: one pass over memory, in parallel.
+        Some(all) if nb > 0 => all.par_chunks_mut(nb * 4096).for_each(|chunk| {
+            for spectrum in chunk.chunks_exact_mut(nb) {
+                spectrum.iter_mut().zip(&f).for_each(|(v, f)| *v *= f);
+            }
+        }),
+        _ => {
+            for (b, &f) in f.iter().enumerate() {
+                data.index_axis_mut(ndarray::Axis(2), b)
+                    .mapv_inplace(|v| v * f);
+            }
+        }
     }
 }
 
@@ -449,6 +464,9 @@ pub fn run_cube(
             timings.time("units", || run_units(&prepared, &unmixed, recipe, progress)),
         )?),
     };
+    if let Some(m) = &map {
+        timings.steps("units", &m.steps);
+    }
     let thermal = thermal_out.map(|output| crate::thermal::ThermalResult {
         plan: prepared
             .thermal

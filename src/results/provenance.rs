@@ -22,6 +22,16 @@ pub struct Timings {
 pub struct StageTime {
     pub stage: String,
     pub seconds: f64,
+    /// The stage's own steps, when it times them (seconds each; they sum to about the
+    /// stage's time).
+    #[serde(skip_serializing_if = "Vec::is_empty")]
+    pub steps: Vec<StepTime>,
+}
+
+#[derive(Debug, Serialize)]
+pub struct StepTime {
+    pub step: String,
+    pub seconds: f64,
 }
 
 impl Timings {
@@ -32,8 +42,22 @@ impl Timings {
         self.stages.push(StageTime {
             stage: name.into(),
             seconds: t.elapsed().as_secs_f64(),
+            steps: Vec::new(),
         });
         out
+    }
+
+    /// Attaches `steps` to the last stage named `name`.
+    pub fn steps(&mut self, name: &str, steps: &[(&'static str, f64)]) {
+        if let Some(s) = self.stages.iter_mut().rev().find(|s| s.stage == name) {
+            s.steps = steps
+                .iter()
+                .map(|(step, seconds)| StepTime {
+                    step: step.to_string(),
+                    seconds: *seconds,
+                })
+                .collect();
+        }
     }
 }
 

@@ -24,7 +24,8 @@
 //!
 //! No I/O and no printing here.
 
-use ndarray::{Array2, ArrayView2};
+use ndarray::{Array2, ArrayView2, Axis};
+use rayon::prelude::*;
 
 type V3 = [f64; 3];
 
@@ -84,13 +85,19 @@ pub fn cell_areas_sr(lat_deg: ArrayView2<f32>, lon_deg: ArrayView2<f32>) -> Opti
     }
     // Centres on a grid extended by one on every side: rows first, then columns (which
     // also fills the extended grid's corners).
+    // Every step is per pixel or per corner, so rows run in parallel (the same numbers
+    // as one by one).
     let mut grid = vec![None; (rows + 2) * (cols + 2)];
     let at = |r: usize, c: usize| r * (cols + 2) + c;
-    for r in 0..rows {
-        for c in 0..cols {
-            grid[at(r + 1, c + 1)] = unit_vector(lat_deg[(r, c)], lon_deg[(r, c)]);
-        }
-    }
+    grid.par_chunks_mut(cols + 2)
+        .enumerate()
+        .skip(1)
+        .take(rows)
+        .for_each(|(er, line)| {
+            for c in 0..cols {
+                line[c + 1] = unit_vector(lat_deg[(er - 1, c)], lon_deg[(er - 1, c)]);
+            }
+        });
     for c in 1..=cols {
         grid[at(0, c)] = extrapolate(grid[at(1, c)], grid[at(2, c)]);
         grid[at(rows + 1, c)] = extrapolate(grid[at(rows, c)], grid[at(rows - 1, c)]);
@@ -106,20 +113,31 @@ pub fn cell_areas_sr(lat_deg: ArrayView2<f32>, lon_deg: ArrayView2<f32>) -> Opti
         let sum = around.iter().filter_map(|&k| grid[k]).reduce(add)?;
         normalised(sum)
     };
-    let corners: Vec<Option<V3>> = (0..=rows)
-        .flat_map(|i| (0..=cols).map(move |j| (i, j)))
-        .map(|(i, j)| corner(i, j))
+    let corners: Vec<Option<V3>> = (0..(rows + 1) * (cols + 1))
+        .into_par_iter()
+        .map(|n| corner(n / (cols + 1), n % (cols + 1)))
         .collect();
     let k = |i: usize, j: usize| corners[i * (cols + 1) + j];
-    Some(Array2::from_shape_fn((rows, cols), |(r, c)| {
-        if grid[at(r + 1, c + 1)].is_none() {
-            return f64::NAN;
-        }
-        match (k(r, c), k(r, c + 1), k(r + 1, c + 1), k(r + 1, c)) {
-            (Some(a), Some(b), Some(cc), Some(d)) => triangle(a, b, cc) + triangle(a, cc, d),
-            _ => f64::NAN,
-        }
-    }))
+    let mut areas = Array2::<f64>::zeros((rows, cols));
+    areas
+        .axis_iter_mut(Axis(0))
+        .into_par_iter()
+        .enumerate()
+        .for_each(|(r, mut line)| {
+            for (c, v) in line.iter_mut().enumerate() {
+                *v = if grid[at(r + 1, c + 1)].is_none() {
+                    f64::NAN
+                } else {
+                    match (k(r, c), k(r, c + 1), k(r + 1, c + 1), k(r + 1, c)) {
+                        (Some(a), Some(b), Some(cc), Some(d)) => {
+                            triangle(a, b, cc) + triangle(a, cc, d)
+                        }
+                        _ => f64::NAN,
+                    }
+                };
+            }
+        });
+    Some(areas)
 }
 
 #[cfg(test)]

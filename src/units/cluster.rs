@@ -237,6 +237,8 @@ fn fit_k(points: &Array2<f64>, k: usize, seed: u64) -> Result<(Array2<f64>, f64)
 
 /// Mean silhouette of a labelling: for each point, (b − a) / max(a, b) with a the mean
 /// distance to its own cluster and b the smallest mean distance to another cluster.
+/// The reference form, one labelling at a time; [`silhouettes`] gives the same numbers
+/// for many labellings in one pass.
 pub fn silhouette(points: ArrayView2<f64>, labels: &[usize], k: usize) -> f64 {
     let n = points.nrows();
     let scores: Vec<f64> = (0..n)
@@ -258,23 +260,92 @@ pub fn silhouette(points: ArrayView2<f64>, labels: &[usize], k: usize) -> f64 {
                 sum[labels[j]] += d;
                 count[labels[j]] += 1;
             }
-            let own = labels[i];
-            if count[own] == 0 {
-                return 0.0;
-            }
-            let a = sum[own] / count[own] as f64;
-            let b = (0..k)
-                .filter(|&c| c != own && count[c] > 0)
-                .map(|c| sum[c] / count[c] as f64)
-                .fold(f64::INFINITY, f64::min);
-            if !b.is_finite() || a.max(b) == 0.0 {
-                0.0
-            } else {
-                (b - a) / a.max(b)
-            }
+            score(&sum, &count, labels[i])
         })
         .collect();
     scores.iter().sum::<f64>() / n.max(1) as f64
+}
+
+/// One point's silhouette from its summed distances and counts per cluster.
+fn score(sum: &[f64], count: &[usize], own: usize) -> f64 {
+    if count[own] == 0 {
+        return 0.0;
+    }
+    let a = sum[own] / count[own] as f64;
+    let b = (0..sum.len())
+        .filter(|&c| c != own && count[c] > 0)
+        .map(|c| sum[c] / count[c] as f64)
+        .fold(f64::INFINITY, f64::min);
+    if !b.is_finite() || a.max(b) == 0.0 {
+        0.0
+    } else {
+        (b - a) / a.max(b)
+    }
+}
+
+/// The mean silhouette of each labelling in `labellings` (labels of the same points, the
+/// t-th with `ks[t]` clusters), bit for bit as [`silhouette`] gives them one by one: every
+/// distance is computed once, not once per labelling, and added to each labelling's sums
+/// in the same order (j ascending), so the choice of K costs one pass over the pairs.
+pub fn silhouettes(points: ArrayView2<f64>, labellings: &[Vec<usize>], ks: &[usize]) -> Vec<f64> {
+    let (n, d) = points.dim();
+    let t_count = labellings.len();
+    assert_eq!(ks.len(), t_count, "one K per labelling");
+    let x = points.as_standard_layout();
+    let xs = x.as_slice().expect("standard layout");
+    // Labels point-major, each labelling's sums at its own offset.
+    let offsets: Vec<usize> = ks
+        .iter()
+        .scan(0, |o, &k| {
+            let here = *o;
+            *o += k;
+            Some(here)
+        })
+        .collect();
+    let slots = ks.iter().sum::<usize>();
+    let mut at = vec![0u32; n * t_count];
+    let mut sizes = vec![0usize; slots];
+    for (t, labels) in labellings.iter().enumerate() {
+        assert_eq!(labels.len(), n, "a label per point");
+        for (j, &l) in labels.iter().enumerate() {
+            assert!(l < ks[t], "label {l} of K = {}", ks[t]);
+            at[j * t_count + t] = (offsets[t] + l) as u32;
+            sizes[offsets[t] + l] += 1;
+        }
+    }
+    let per_point: Vec<Vec<f64>> = (0..n)
+        .into_par_iter()
+        .map_init(
+            || vec![0.0f64; slots],
+            |sum, i| {
+                sum.iter_mut().for_each(|s| *s = 0.0);
+                let xi = &xs[i * d..(i + 1) * d];
+                for j in (0..n).filter(|&j| j != i) {
+                    let xj = &xs[j * d..(j + 1) * d];
+                    let mut s2 = 0.0f64;
+                    for (a, b) in xi.iter().zip(xj) {
+                        s2 += (a - b) * (a - b);
+                    }
+                    let dist = s2.sqrt();
+                    for &slot in &at[j * t_count..(j + 1) * t_count] {
+                        sum[slot as usize] += dist;
+                    }
+                }
+                (0..t_count)
+                    .map(|t| {
+                        let range = offsets[t]..offsets[t] + ks[t];
+                        let own = at[i * t_count + t] as usize - offsets[t];
+                        let mut count = sizes[range.clone()].to_vec();
+                        count[own] -= 1;
+                        score(&sum[range], &count, own)
+                    })
+                    .collect()
+            },
+        )
+        .collect();
+    (0..t_count)
+        .map(|t| per_point.iter().map(|p| p[t]).sum::<f64>() / n.max(1) as f64)
+        .collect()
 }
 
 /// Fits `method` on `sample` with `k` units, or chooses K in 2…`max_k` (k-means by
@@ -353,11 +424,15 @@ pub fn fit(
     }
     let sil_idx = sample_indices(n, SILHOUETTE_POINTS, seed ^ 0x5117);
     let sil_points = sample.select(Axis(0), &sil_idx);
+    let ks: Vec<usize> = (2..=max_k.min(distinct)).collect();
+    let fits = ks
+        .iter()
+        .map(|&k| fit_k(sample, k, seed).map(|f| f.0))
+        .collect::<Result<Vec<_>, _>>()?;
+    let labellings: Vec<Vec<usize>> = fits.iter().map(|c| assign(c, sil_points.view())).collect();
+    let sil = silhouettes(sil_points.view(), &labellings, &ks);
     let mut best: Option<(f64, Array2<f64>)> = None;
-    for k in 2..=max_k.min(distinct) {
-        let (centroids, _) = fit_k(sample, k, seed)?;
-        let labels = assign(&centroids, sil_points.view());
-        let s = silhouette(sil_points.view(), &labels, k);
+    for ((&k, s), centroids) in ks.iter().zip(sil).zip(fits) {
         scores.push((k, s));
         if best.as_ref().is_none_or(|(b, _)| s > *b) {
             best = Some((s, centroids));
@@ -419,6 +494,27 @@ mod tests {
         let a = Array2::from_shape_fn((60, 2), |(i, j)| pts[i][j]);
         let c = fit(&a, Method::KMeans, None, 6, 1).unwrap();
         assert_eq!(c.centroids.nrows(), 3, "{:?}", c.scores);
+    }
+
+    #[test]
+    fn silhouettes_in_one_pass_equal_the_reference_bit_for_bit() {
+        use rand::Rng;
+        let mut rng = ChaCha8Rng::seed_from_u64(7);
+        let a = Array2::from_shape_fn((257, 5), |_| rng.gen::<f64>());
+        let ks = [2usize, 3, 5, 9];
+        let labellings: Vec<Vec<usize>> = ks
+            .iter()
+            .map(|&k| (0..257).map(|_| rng.gen_range(0..k)).collect())
+            .collect();
+        let fast = silhouettes(a.view(), &labellings, &ks);
+        for ((&k, labels), f) in ks.iter().zip(&labellings).zip(&fast) {
+            let reference = silhouette(a.view(), labels, k);
+            assert_eq!(
+                reference.to_bits(),
+                f.to_bits(),
+                "K = {k}: {reference} vs {f}"
+            );
+        }
     }
 
     #[test]

@@ -87,6 +87,29 @@ pub struct UnitMap {
     pub area_missing_pixels: usize,
     /// Area fraction per class id.
     pub classes: BTreeMap<String, f64>,
+    /// Wall time of each step of [`classify`], seconds, in the order they ran.
+    pub steps: Vec<(&'static str, f64)>,
+}
+
+/// Wall time per step (durations only: no I/O).
+struct Clock {
+    at: std::time::Instant,
+    steps: Vec<(&'static str, f64)>,
+}
+
+impl Clock {
+    fn start() -> Clock {
+        Clock {
+            at: std::time::Instant::now(),
+            steps: Vec::new(),
+        }
+    }
+
+    fn lap(&mut self, step: &'static str) {
+        let now = std::time::Instant::now();
+        self.steps.push((step, (now - self.at).as_secs_f64()));
+        self.at = now;
+    }
 }
 
 /// Groups the unmixed pixels of `out` into units.
@@ -99,6 +122,7 @@ pub fn classify(
     p: &UnitParams,
 ) -> Result<UnitMap, UnitsError> {
     p.check()?;
+    let mut clock = Clock::start();
     let (rows, cols, _) = out.abundance.dim();
     let screened = features::screen(out);
     let features = Features::new(out, p);
@@ -118,7 +142,13 @@ pub fn classify(
         let (r, c) = pixels[idx[i]];
         features.write(r, c, row.as_slice_mut().expect("rows are contiguous"));
     }
+    clock.lap("screen and sample");
     let fitted = cluster::fit(&sample, p.method, p.units, p.max_units, p.seed)?;
+    clock.lap(if p.units.is_some() {
+        "fit"
+    } else {
+        "fit and choose K"
+    });
     let assigned: Vec<usize> = {
         use rayon::prelude::*;
         pixels
@@ -153,6 +183,7 @@ pub fn classify(
     for &(r, c) in unexplained {
         labels[(r, c)] = unexplained_id;
     }
+    clock.lap("assign");
     let centroid_of = |l: i16| fitted.centroids.row(order[(l - 1) as usize]);
     let (regions_before, regions_after) =
         regions::merge_small(&mut labels, p.min_area, unexplained_id, |a, b| {
@@ -163,9 +194,11 @@ pub fn classify(
                 .sum::<f64>()
         });
 
+    clock.lap("regions");
     // Statistics, names and colours per unit (and for the unexplained pixels).
     let area = AreaWeights::new(geometry);
     let total_area = area.total(out);
+    clock.lap("areas");
     let matrix = ColourMatrix::for_wavelengths(&spectra.wavelength_um);
     let mut units: Vec<Unit> = Vec::new();
     let all_labels: Vec<i16> = (1..=k as i16)
@@ -215,7 +248,9 @@ pub fn classify(
     for u in &units {
         *classes.entry(u.class.clone()).or_insert(0.0) += u.area_fraction;
     }
+    clock.lap("statistics and names");
     Ok(UnitMap {
+        steps: clock.steps,
         ids,
         labels,
         units,

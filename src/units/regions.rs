@@ -2,47 +2,49 @@
 //! smaller than it are merged into the most similar neighbouring unit (nearest centroid
 //! in feature space), smallest first, until none is left or none can merge.
 
-use std::collections::VecDeque;
-
 use ndarray::Array2;
 
 /// 8-connected regions of non-zero labels: a region id per pixel (0 = none) and each
-/// region's (label, size); region ids count from 1.
+/// region's (label, size); region ids count from 1, in the raster order of each region's
+/// first pixel. A flood fill over flat slices with an explicit stack (the order a region
+/// is filled in does not change its pixels, its id or its size).
 pub fn regions(labels: &Array2<i16>) -> (Array2<u32>, Vec<(i16, usize)>) {
     let (rows, cols) = labels.dim();
-    let mut id = Array2::<u32>::zeros((rows, cols));
+    let flat = labels.as_standard_layout();
+    let l = flat.as_slice().expect("standard layout");
+    let mut id = vec![0u32; rows * cols];
     let mut info = Vec::new();
-    let mut queue = VecDeque::new();
-    for r in 0..rows {
-        for c in 0..cols {
-            let l = labels[(r, c)];
-            if l == 0 || id[(r, c)] != 0 {
-                continue;
-            }
-            let rid = info.len() as u32 + 1;
-            let mut size = 0;
-            id[(r, c)] = rid;
-            queue.push_back((r, c));
-            while let Some((y, x)) = queue.pop_front() {
-                size += 1;
-                for dy in -1i64..=1 {
-                    for dx in -1i64..=1 {
-                        let (ny, nx) = (y as i64 + dy, x as i64 + dx);
-                        if ny < 0 || nx < 0 || ny >= rows as i64 || nx >= cols as i64 {
-                            continue;
-                        }
-                        let (ny, nx) = (ny as usize, nx as usize);
-                        if labels[(ny, nx)] == l && id[(ny, nx)] == 0 {
-                            id[(ny, nx)] = rid;
-                            queue.push_back((ny, nx));
-                        }
+    let mut stack: Vec<usize> = Vec::new();
+    for start in 0..rows * cols {
+        let label = l[start];
+        if label == 0 || id[start] != 0 {
+            continue;
+        }
+        let rid = info.len() as u32 + 1;
+        let mut size = 0;
+        id[start] = rid;
+        stack.push(start);
+        while let Some(k) = stack.pop() {
+            size += 1;
+            let (y, x) = (k / cols, k % cols);
+            let (y0, y1) = (y.saturating_sub(1), (y + 1).min(rows - 1));
+            let (x0, x1) = (x.saturating_sub(1), (x + 1).min(cols - 1));
+            for ny in y0..=y1 {
+                let row = ny * cols;
+                for nk in row + x0..=row + x1 {
+                    if l[nk] == label && id[nk] == 0 {
+                        id[nk] = rid;
+                        stack.push(nk);
                     }
                 }
             }
-            info.push((l, size));
         }
+        info.push((label, size));
     }
-    (id, info)
+    (
+        Array2::from_shape_vec((rows, cols), id).expect("rows × cols"),
+        info,
+    )
 }
 
 /// Merges regions smaller than `min_area` pixels into their most similar neighbouring
@@ -54,14 +56,15 @@ pub fn merge_small(
     keep: i16,
     distance: impl Fn(i16, i16) -> f64,
 ) -> (usize, usize) {
-    let (_, before) = regions(labels);
-    let before_count = before.len();
+    let (mut ids, mut info) = regions(labels);
+    let before_count = info.len();
     if min_area <= 1 {
         return (before_count, before_count);
     }
     let (rows, cols) = labels.dim();
+    // `ids` and `info` always describe `labels` as they stand: computed once before the
+    // first round and once after each round that merged something.
     for _round in 0..16 {
-        let (ids, info) = regions(labels);
         let mut order: Vec<usize> = (0..info.len())
             .filter(|&i| info[i].1 < min_area && info[i].0 != keep)
             .collect();
@@ -110,9 +113,9 @@ pub fn merge_small(
         if !changed {
             break;
         }
+        (ids, info) = regions(labels);
     }
-    let (_, after) = regions(labels);
-    (before_count, after.len())
+    (before_count, info.len())
 }
 
 #[cfg(test)]

@@ -109,6 +109,11 @@ pub(crate) fn boundary(
     let (m, dims) = (model.columns(), model.q.ncols());
     let mat = model.material_columns();
     let table = &model.table64;
+    // Qᵀ as contiguous rows of D, so z accumulates band by band (the same order per k).
+    let q: Vec<f64> = (0..nb)
+        .flat_map(|b| (0..dims).map(move |k| (b, k)))
+        .map(|(b, k)| model.q[(b, k)])
+        .collect();
     flags
         .axis_iter_mut(Axis(0))
         .into_par_iter()
@@ -126,10 +131,12 @@ pub(crate) fn boundary(
                 let (Some(spread), true) = (model.spreads.multipliers(set), table.has(set)) else {
                     continue;
                 };
-                for (k, zk) in z.iter_mut().enumerate() {
-                    *zk = (0..nb)
-                        .map(|b| model.q[(b, k)] * data[(r, c, b)] as f64)
-                        .sum();
+                z.iter_mut().for_each(|zk| *zk = -0.0);
+                let spectrum = data.slice(ndarray::s![r, c, ..]);
+                for (qb, &y) in q.chunks_exact(dims).zip(spectrum.iter()) {
+                    for (zk, qbk) in z.iter_mut().zip(qb) {
+                        *zk += qbk * y as f64;
+                    }
                 }
                 let raw = table.raw(set);
                 let (map, rest) = raw.split_at(2 * m * dims);
