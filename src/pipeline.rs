@@ -446,6 +446,11 @@ pub fn run_cube(
     let mut timings = Timings::default();
     let mut prepared = at("read", prepare(cube, hdu, recipe, &mut timings))?;
     at("write", results::prepare(to.dir, to.overwrite))?;
+    // The inputs are hashed for run.json while the cube is unmixed and mapped, not before.
+    let hashing = {
+        let files = prepared.cube.info.inputs.clone();
+        std::thread::spawn(move || results::input_records(&files))
+    };
     for w in &prepared.warnings {
         progress.warn(w);
     }
@@ -475,7 +480,17 @@ pub fn run_cube(
         spots: hot_spots(&prepared, &output, map.as_ref(), recipe),
         output,
     });
+    let inputs = at(
+        "write",
+        hashing.join().unwrap_or_else(|_| {
+            Err(crate::atomic::WriteError::Io {
+                path: prepared.cube.info.path.clone(),
+                error: std::io::Error::other("hashing the input failed"),
+            })
+        }),
+    )?;
     let result = CubeResult {
+        inputs: &inputs,
         command: job.name(),
         thermal: thermal.as_ref(),
         cube: &prepared.cube,

@@ -48,17 +48,23 @@ impl ImageData<'_> {
         self.axes().iter().product::<usize>() * (self.bitpix().unsigned_abs() as usize / 8)
     }
 
-    /// Streams the samples big-endian, one band plane at a time (one plane of memory).
+    /// Streams the samples big-endian, one band plane at a time (one plane of memory); a
+    /// plane is gathered from the (row, col, band) samples row by row in parallel.
     fn write_data<W: Write>(&self, w: &mut W) -> io::Result<()> {
+        use rayon::prelude::*;
         match self {
             ImageData::Cube(cube) => {
                 let (rows, cols, bands) = cube.dim();
-                let mut buf = Vec::with_capacity(rows * cols * 4);
+                let mut buf = vec![0u8; rows * cols * 4];
                 for b in 0..bands {
-                    buf.clear();
-                    for v in cube.index_axis(ndarray::Axis(2), b).iter() {
-                        buf.extend_from_slice(&v.to_be_bytes());
-                    }
+                    let plane = cube.index_axis(ndarray::Axis(2), b);
+                    buf.par_chunks_mut((cols * 4).max(1))
+                        .zip(plane.axis_iter(ndarray::Axis(0)).into_par_iter())
+                        .for_each(|(out, line)| {
+                            for (o, v) in out.chunks_exact_mut(4).zip(line.iter()) {
+                                o.copy_from_slice(&v.to_be_bytes());
+                            }
+                        });
                     w.write_all(&buf)?;
                 }
             }

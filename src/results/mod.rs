@@ -36,6 +36,8 @@ pub use provenance::{input_records, peak_rss_bytes, sha256_file, InputRecord, Ti
 pub struct CubeResult<'a> {
     /// `unmix` or `map`, as `run.json` records it.
     pub command: &'a str,
+    /// The input files with their SHA-256 ([`input_records`]), as `run.json` records them.
+    pub inputs: &'a [InputRecord],
     pub cube: &'a Cube,
     pub library: &'a Library,
     pub model: &'a Model,
@@ -96,8 +98,8 @@ pub fn prepare(dir: &Path, overwrite: bool) -> Result<(), WriteError> {
     std::fs::create_dir_all(dir).map_err(io)
 }
 
-/// Writes the whole folder `dir` (prepared by [`prepare`]): the data products (timed as
-/// the `write` stage), then `summary.json`, `timings.json` and, last, `run.json`. Once this
+/// Writes the whole folder `dir` (prepared by [`prepare`]): the data products and
+/// `summary.json` (timed as the `write` stage), then `timings.json` and, last, `run.json`. Once this
 /// returns, the folder is complete.
 pub fn write_folder(
     dir: &Path,
@@ -106,8 +108,8 @@ pub fn write_folder(
     threads: usize,
     before_run: &dyn Fn(&str) -> Result<(), WriteError>,
 ) -> Result<(), WriteError> {
-    timings.time("write", || write_products(dir, r))?;
-    products::summary(dir, r)?;
+    let steps = timings.time("write", || write_products(dir, r))?;
+    timings.steps("write", &steps);
     provenance::write_timings(dir, &timings, threads)?;
     let run = provenance::run_record_text(r)?;
     // The report (`--report`) goes here: after every other product, before run.json.
@@ -115,33 +117,125 @@ pub fn write_folder(
     atomic::write_bytes(&dir.join("run.json"), run.as_bytes())
 }
 
-/// The data products, everything but the summary and the provenance.
-fn write_products(dir: &Path, r: &CubeResult) -> Result<(), WriteError> {
-    products::abundance_planes(dir, r)?;
-    products::stderr_planes(dir, r)?;
-    products::covariance_planes(dir, r)?;
-    products::fit_rmse_plane(dir, r)?;
-    products::fit_flags_plane(dir, r)?;
-    products::thermal_planes(dir, r)?;
-    products::hot_spot_tables(dir, r)?;
+/// One product's writer, as [`write_products`] runs it.
+type Job<'s> = (
+    &'static str,
+    Box<dyn Fn() -> Result<(), WriteError> + Send + Sync + 's>,
+);
+
+/// The data products, everything but the summary and the provenance. Each product is
+/// its own file(s) and reads only the finished result, so they are written in parallel
+/// (rayon's pool, the run's threads); each is written whole under a temporary name first
+/// ([`atomic`]), so a failure leaves no partial product under its final name. The first
+/// error in product order is returned. Returns each product's own wall time (they overlap).
+fn write_products(dir: &Path, r: &CubeResult) -> Result<Vec<(&'static str, f64)>, WriteError> {
+    use rayon::prelude::*;
+    // Drawn once, for both pictures that show it.
     let tc = (r.thermal.is_some() || r.units.is_some()).then(|| products::true_colour_image(r));
-    if let Some(tc) = &tc {
-        products::hot_spot_picture(dir, r, tc)?;
+    let tc = tc.as_ref();
+    // Computed once, for stderr.fits and the summary's mean errors.
+    let stderr = r.unmixed.stderr();
+    let stderr = &stderr;
+    let mut jobs: Vec<Job> = vec![
+        (
+            "summary.json",
+            Box::new(|| products::summary(dir, r, Some(stderr))),
+        ),
+        (
+            "abundance.fits",
+            Box::new(|| products::abundance_planes(dir, r)),
+        ),
+        (
+            "stderr.fits",
+            Box::new(|| products::stderr_planes(dir, r, stderr)),
+        ),
+        (
+            "covariance.fits",
+            Box::new(|| products::covariance_planes(dir, r)),
+        ),
+        (
+            "fit-rmse.fits",
+            Box::new(|| products::fit_rmse_plane(dir, r)),
+        ),
+        (
+            "fit-flags.fits",
+            Box::new(|| products::fit_flags_plane(dir, r)),
+        ),
+        (
+            "thermal.fits",
+            Box::new(|| products::thermal_planes(dir, r)),
+        ),
+        (
+            "hot spot tables",
+            Box::new(|| products::hot_spot_tables(dir, r)),
+        ),
+        (
+            "residual.fits",
+            Box::new(|| products::residual_planes(dir, r)),
+        ),
+        (
+            "fit-rmse.png",
+            Box::new(|| products::fit_rmse_picture(dir, r)),
+        ),
+    ];
+    // One job per abundance picture: they are the most numerous.
+    for j in 0..r.unmixed.ids.len() {
+        jobs.push((
+            "abundance pictures",
+            Box::new(move || products::abundance_picture(dir, r, j)),
+        ));
     }
-    products::residual_planes(dir, r)?;
-    products::abundance_pictures(dir, r)?;
-    products::fit_rmse_picture(dir, r)?;
+    if let Some(tc) = tc {
+        jobs.push((
+            "hot spot picture",
+            Box::new(move || products::hot_spot_picture(dir, r, tc)),
+        ));
+    }
     if let Some(map) = r.units {
-        products::units_plane(dir, r, map)?;
-        products::units_picture(dir, r, map)?;
-        if let Some(tc) = &tc {
-            products::true_colour_picture(dir, tc)?;
+        jobs.push((
+            "units.fits",
+            Box::new(move || products::units_plane(dir, r, map)),
+        ));
+        jobs.push((
+            "units.png",
+            Box::new(move || products::units_picture(dir, r, map)),
+        ));
+        if let Some(tc) = tc {
+            jobs.push((
+                "true-colour.png",
+                Box::new(move || products::true_colour_picture(dir, tc)),
+            ));
         }
-        products::units_legend(dir, map)?;
-        products::units_table(dir, r, map)?;
-        products::units_spectra(dir, r, map)?;
+        jobs.push((
+            "units-legend.svg",
+            Box::new(move || products::units_legend(dir, map)),
+        ));
+        jobs.push((
+            "units.csv",
+            Box::new(move || products::units_table(dir, r, map)),
+        ));
+        jobs.push((
+            "units-spectra.svg",
+            Box::new(move || products::units_spectra(dir, r, map)),
+        ));
     }
-    Ok(())
+    let done: Vec<(&'static str, f64, Result<(), WriteError>)> = jobs
+        .par_iter()
+        .map(|(name, job)| {
+            let t = std::time::Instant::now();
+            let result = job();
+            (*name, t.elapsed().as_secs_f64(), result)
+        })
+        .collect();
+    let mut steps: Vec<(&'static str, f64)> = Vec::new();
+    for (name, seconds, result) in done {
+        result?;
+        match steps.iter_mut().find(|(n, _)| *n == name) {
+            Some(step) => step.1 += seconds,
+            None => steps.push((name, seconds)),
+        }
+    }
+    Ok(steps)
 }
 
 /// Writes pretty JSON with a final newline.

@@ -149,7 +149,7 @@ pub fn abundance_planes(dir: &Path, r: &CubeResult) -> Result<(), WriteError> {
 /// K_P the top-left block of the inverse of [[G_PP, 1], [1ᵀ, 0]] (without the border when
 /// the sum is not constrained) and J the README's renormalisation. Written outside subset
 /// mode, whose errors are per-pixel mixtures.
-pub fn stderr_planes(dir: &Path, r: &CubeResult) -> Result<(), WriteError> {
+pub fn stderr_planes(dir: &Path, r: &CubeResult, data: &Array3<f32>) -> Result<(), WriteError> {
     let mut cards = common_cards(&r.cube.info, "standard errors of the abundances");
     for (i, id) in r.unmixed.ids.iter().enumerate() {
         cards.push(Card::new(
@@ -158,7 +158,6 @@ pub fn stderr_planes(dir: &Path, r: &CubeResult) -> Result<(), WriteError> {
             "",
         ));
     }
-    let data = r.unmixed.stderr();
     let primary = ImageHdu {
         data: ImageData::Cube(data.view()),
         cards,
@@ -321,22 +320,18 @@ pub fn residual_planes(dir: &Path, r: &CubeResult) -> Result<(), WriteError> {
     )
 }
 
-/// `abundance/<id>.png`: one greyscale map per plane, 0–1.
-pub fn abundance_pictures(dir: &Path, r: &CubeResult) -> Result<(), WriteError> {
+/// `abundance/<id>.png` of plane `j`: a greyscale map, 0–1.
+pub fn abundance_picture(dir: &Path, r: &CubeResult, j: usize) -> Result<(), WriteError> {
     let out = r.unmixed;
-    let bottom = r.cube.info.format.row0_at_bottom();
-    for (j, id) in out.ids.iter().enumerate() {
-        let plane = out.abundance.index_axis(Axis(2), j);
-        let img = render::maps::grey_map(
-            plane,
-            out.unmixed.view(),
-            bottom,
-            (0.0, 1.0),
-            &format!("abundance of {id}"),
-        );
-        write_png(&dir.join("abundance").join(format!("{id}.png")), &img)?;
-    }
-    Ok(())
+    let id = &out.ids[j];
+    let img = render::maps::grey_map(
+        out.abundance.index_axis(Axis(2), j),
+        out.unmixed.view(),
+        r.cube.info.format.row0_at_bottom(),
+        (0.0, 1.0),
+        &format!("abundance of {id}"),
+    );
+    write_png(&dir.join("abundance").join(format!("{id}.png")), &img)
 }
 
 /// `fit-rmse.png`: the fit RMSE, its bar clipped at the 99th percentile.
@@ -511,56 +506,62 @@ pub fn units_spectra(dir: &Path, r: &CubeResult, map: &UnitMap) -> Result<(), Wr
     let e: Vec<f64> = (0..nb)
         .flat_map(|b| (0..mat).map(move |j| r.model.e[(b, j)] / w[b]))
         .collect();
-    let mut panels = Vec::new();
-    for u in &map.units {
-        let (mut sum, mut sq, mut model) = (vec![0.0; nb], vec![0.0; nb], vec![0.0; nb]);
-        let mut n = 0.0;
-        for ((row, col), l) in map.labels.indexed_iter() {
-            if *l as usize != u.unit {
-                continue;
+    // One pass over the labels per unit, the units in parallel (each unit's sums in pixel
+    // order, as one by one).
+    use rayon::prelude::*;
+    let panels: Vec<render::units::UnitSpectrum> = map
+        .units
+        .par_iter()
+        .filter_map(|u| {
+            let (mut sum, mut sq, mut model) = (vec![0.0; nb], vec![0.0; nb], vec![0.0; nb]);
+            let mut n = 0.0;
+            for ((row, col), l) in map.labels.indexed_iter() {
+                if *l as usize != u.unit {
+                    continue;
+                }
+                n += 1.0;
+                let px = row * cols + col;
+                let (y, a) = (
+                    &spectra[px * nb..][..nb],
+                    &abundance[px * planes..][..planes],
+                );
+                let bright = shade_plane.map_or(1.0, |s| 1.0 - a[s] as f64);
+                for (b, y) in y.iter().enumerate() {
+                    let (y, e) = (*y as f64, &e[b * mat..(b + 1) * mat]);
+                    sum[b] += y;
+                    sq[b] += y * y;
+                    let fit: f64 = e.iter().zip(a).map(|(e, a)| e * *a as f64).sum();
+                    model[b] += bright * fit;
+                }
             }
-            n += 1.0;
-            let px = row * cols + col;
-            let (y, a) = (
-                &spectra[px * nb..][..nb],
-                &abundance[px * planes..][..planes],
-            );
-            let bright = shade_plane.map_or(1.0, |s| 1.0 - a[s] as f64);
-            for (b, y) in y.iter().enumerate() {
-                let (y, e) = (*y as f64, &e[b * mat..(b + 1) * mat]);
-                sum[b] += y;
-                sq[b] += y * y;
-                let fit: f64 = e.iter().zip(a).map(|(e, a)| e * *a as f64).sum();
-                model[b] += bright * fit;
+            if n == 0.0 {
+                return None;
             }
-        }
-        if n == 0.0 {
-            continue;
-        }
-        let mean: Vec<f64> = sum.iter().map(|s| s / n).collect();
-        let std: Vec<f64> = sq
-            .iter()
-            .zip(&mean)
-            .map(|(q, m)| (q / n - m * m).max(0.0).sqrt())
-            .collect();
-        panels.push(render::units::UnitSpectrum {
-            title: format!("{}: {} ({} px)", u.unit, u.label, u.pixels),
-            colour: u.colour,
-            centres_um: centres.clone(),
-            mean,
-            std,
-            model: model.iter().map(|m| m / n).collect(),
-        });
-    }
+            let mean: Vec<f64> = sum.iter().map(|s| s / n).collect();
+            let std: Vec<f64> = sq
+                .iter()
+                .zip(&mean)
+                .map(|(q, m)| (q / n - m * m).max(0.0).sqrt())
+                .collect();
+            Some(render::units::UnitSpectrum {
+                title: format!("{}: {} ({} px)", u.unit, u.label, u.pixels),
+                colour: u.colour,
+                centres_um: centres.clone(),
+                mean,
+                std,
+                model: model.iter().map(|m| m / n).collect(),
+            })
+        })
+        .collect();
     let svg =
         render::units::spectra_svg(&panels).map_err(|e| failed(dir, "units-spectra.svg", e))?;
     atomic::write_bytes(&dir.join("units-spectra.svg"), svg.as_bytes())
 }
 
 /// `summary.json`: the unmixing summary, with the units' part for `map`.
-pub fn summary(dir: &Path, r: &CubeResult) -> Result<(), WriteError> {
+pub fn summary(dir: &Path, r: &CubeResult, stderr: Option<&Array3<f32>>) -> Result<(), WriteError> {
     let path = dir.join("summary.json");
-    let unmixing = super::summary::unmix_summary(r);
+    let unmixing = super::summary::unmix_summary(r, stderr);
     let Some(map) = r.units else {
         return super::write_json(&path, &unmixing);
     };

@@ -141,7 +141,7 @@ pub fn run_record<'a>(r: &CubeResult<'a>) -> Result<RunRecord<'a>, WriteError> {
         tool: "thiomap",
         version: crate::VERSION,
         command: r.command,
-        inputs: input_records(&r.cube.info.inputs)?,
+        inputs: r.inputs.to_vec(),
         library: library_record(r.library),
         recipe: r.recipe,
         conventions: serde_json::json!({

@@ -61,7 +61,11 @@ pub struct UnmixSummary<'a> {
 }
 
 /// Builds the unmixing part of `summary.json`.
-pub fn unmix_summary<'a>(r: &CubeResult<'a>) -> UnmixSummary<'a> {
+/// `stderr`: the standard-error planes when the caller has them (else computed here).
+pub fn unmix_summary<'a>(
+    r: &CubeResult<'a>,
+    stderr: Option<&ndarray::Array3<f32>>,
+) -> UnmixSummary<'a> {
     let (out, model) = (r.unmixed, r.model);
     let c = out.counts;
     let (mut s, mut n) = (0.0, 0usize);
@@ -88,7 +92,7 @@ pub fn unmix_summary<'a>(r: &CubeResult<'a>) -> UnmixSummary<'a> {
                 .collect::<Vec<_>>(),
         )
         .expect("groups serialise"),
-        per_member: unmix::plane_stats(out),
+        per_member: unmix::plane_stats(out, stderr),
         nodata_pixels: c.nodata + c.zero_signal + c.dark,
         masked_pixels: serde_json::json!({
             "input_nodata": c.nodata,

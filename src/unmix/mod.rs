@@ -54,8 +54,17 @@ pub struct PlaneStats {
     pub mean_stderr: f64,
 }
 
-/// Per-plane statistics over the unmixed pixels.
-pub fn plane_stats(out: &UnmixOutput) -> Vec<PlaneStats> {
+/// Per-plane statistics over the unmixed pixels; `stderr` is [`UnmixOutput::stderr`] when
+/// the caller has it already (it is computed here otherwise).
+pub fn plane_stats(out: &UnmixOutput, stderr: Option<&ndarray::Array3<f32>>) -> Vec<PlaneStats> {
+    let owned;
+    let stderr = match stderr {
+        Some(e) => e,
+        None => {
+            owned = out.stderr();
+            &owned
+        }
+    };
     let p = out.ids.len();
     let mut n = 0usize;
     let (mut s, mut s2) = (vec![0.0f64; p], vec![0.0f64; p]);
@@ -66,18 +75,17 @@ pub fn plane_stats(out: &UnmixOutput) -> Vec<PlaneStats> {
             continue;
         }
         n += 1;
-        let cov = out.covariance_at(r, c);
         for j in 0..p {
             let v = out.abundance[(r, c, j)] as f64;
             s[j] += v;
             s2[j] += v * v;
             lo[j] = lo[j].min(v);
             hi[j] = hi[j].max(v);
-            if let Some(e) = cov.as_ref().map(|cv| cv[j * p + j].max(0.0).sqrt() as f32) {
-                if e.is_finite() {
-                    se[j] += e as f64;
-                    se_n[j] += 1;
-                }
+            // NaN where the pixel has no covariance, as in the planes.
+            let e = stderr[(r, c, j)];
+            if e.is_finite() {
+                se[j] += e as f64;
+                se_n[j] += 1;
             }
         }
     }

@@ -103,13 +103,22 @@ impl UnmixOutput {
     /// count), or `None` where the pixel was not unmixed or its passive set is singular.
     pub fn covariance_at(&self, r: usize, c: usize) -> Option<Vec<f64>> {
         let p = self.ids.len();
+        let mut out = vec![0.0; p * p];
+        let mut f = Vec::with_capacity(p);
+        self.covariance_into(r, c, &mut f, &mut out).then_some(out)
+    }
+
+    /// [`Self::covariance_at`] into `out` (P × P) with `f` as scratch, allocating nothing:
+    /// false where there is no covariance (`out` then holds nothing of use).
+    fn covariance_into(&self, r: usize, c: usize, f: &mut Vec<f64>, out: &mut [f64]) -> bool {
+        let p = self.ids.len();
         if !self.unmixed[(r, c)] {
-            return None;
+            return false;
         }
         if let Some(cov) = self.errors.overrides.get(&(r, c)) {
-            return Some(cov.clone());
+            out.copy_from_slice(cov);
+            return true;
         }
-        let mut out = vec![0.0; p * p];
         if let Some(mix) = &self.errors.mixture {
             for i in 0..p {
                 for j in i..p {
@@ -118,12 +127,15 @@ impl UnmixOutput {
                     out[j * p + i] = v;
                 }
             }
-            return Some(out);
+            return true;
         }
         let e = &self.errors;
-        let k = e.spreads.covariance(e.passive[(r, c)] as u32)?;
+        let Some(k) = e.spreads.covariance(e.passive[(r, c)] as u32) else {
+            return false;
+        };
         let mat = self.material_planes();
-        let f: Vec<f64> = (0..mat).map(|j| self.abundance[(r, c, j)] as f64).collect();
+        f.clear();
+        f.extend((0..mat).map(|j| self.abundance[(r, c, j)] as f64));
         let shade = self
             .reports_shade()
             .then(|| self.abundance[(r, c, mat)] as f64);
@@ -131,12 +143,12 @@ impl UnmixOutput {
             k,
             e.spreads.columns,
             e.shade_column,
-            &f,
+            f,
             e.scale[(r, c)] as f64,
             shade,
-            &mut out,
+            out,
         );
-        Some(out)
+        true
     }
 
     /// Puts a refitted pixel in place: its reported planes (materials, then shade when
@@ -178,13 +190,11 @@ impl UnmixOutput {
             .into_par_iter()
             .enumerate()
             .for_each(|(r, mut row)| {
-                for c in 0..cols {
-                    if let Some(cov) = self.covariance_at(r, c) {
-                        let mut vals = vec![0.0f32; n];
-                        fill(&cov, &mut vals);
-                        for (k, v) in vals.into_iter().enumerate() {
-                            row[(c, k)] = v;
-                        }
+                let p = self.ids.len();
+                let (mut cov, mut f) = (vec![0.0f64; p * p], Vec::with_capacity(p));
+                for (c, mut vals) in row.outer_iter_mut().enumerate().take(cols) {
+                    if self.covariance_into(r, c, &mut f, &mut cov) {
+                        fill(&cov, vals.as_slice_mut().expect("planes are contiguous"));
                     }
                 }
             });
