@@ -154,6 +154,13 @@ impl Draft {
                 "subset mode needs the fcls solver (it compares constrained fits)",
             ),
         })?;
+        if !(r.subset_truncation >= 0.0 && r.subset_truncation < 1e-2) {
+            return Err(self.broken(
+                "subset_truncation",
+                "the weight truncation must lie in 0 ≤ t < 0.01 (1e-6 is the default; 0 keeps \
+                 every subset)",
+            ));
+        }
         if !(r.unexplained_p > 0.0 && r.unexplained_p < 0.5) {
             return Err(self.broken(
                 "unexplained_p",
@@ -195,6 +202,8 @@ impl Draft {
                 stated_noise: None,
                 residuals: r.residuals,
                 false_alarm: r.unexplained_p,
+                subset_truncation: r.subset_truncation,
+                exhaustive_subsets: false,
             },
             selection: BandSelection {
                 range_um: r.range_um.map(|[a, b]| (a, b)),

@@ -8,6 +8,7 @@
 //! solver = "fcls"           # unconstrained, sum-to-one, nnls, fcls
 //! shade = true
 //! subset = "auto"           # auto, off, or a subset size K
+//! subset_truncation = 1e-6  # subset mode: BIC weights below this are left out (0: none)
 //! groups = true
 //! group_angle_deg = 1.0
 //! # noise = 0.002           # noise σ for standard errors (default: from residuals)
@@ -72,6 +73,9 @@ pub struct Recipe {
     pub solver: Solver,
     pub shade: bool,
     pub subset: Subsets,
+    /// Subset mode: subsets whose BIC weight exp(−ΔBIC/2) relative to the best falls below
+    /// this are left out of the average (and need not be solved); 0 keeps every subset.
+    pub subset_truncation: f64,
     pub groups: bool,
     pub group_angle_deg: f64,
     #[serde(skip_serializing_if = "Option::is_none")]
@@ -311,6 +315,7 @@ impl Default for Recipe {
             solver: p.solver,
             shade: p.shade,
             subset: p.subsets,
+            subset_truncation: crate::unmix::DEFAULT_SUBSET_TRUNCATION,
             groups: p.groups,
             group_angle_deg: p.group_angle_deg,
             noise: p.noise,

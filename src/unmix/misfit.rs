@@ -24,6 +24,7 @@
 //! Pure arithmetic on arrays: no I/O.
 
 use ndarray::{Array2, ArrayView3};
+use rayon::prelude::*;
 use serde::Serialize;
 use statrs::distribution::{ChiSquared, ContinuousCDF};
 
@@ -74,6 +75,9 @@ fn median(v: &mut [f64]) -> f64 {
     *m
 }
 
+/// A tested pixel: row, column, RSS, ν and its mean sample s̄.
+type Tested = (usize, usize, f64, usize, f64);
+
 /// Runs the test on every unmixed pixel of `out`, unmixed from `data` (row, column, band);
 /// `sum_to_one` says whether the solver had the constraint; `noise` is the σ given, if any;
 /// `false_alarm` the probability p.
@@ -87,21 +91,32 @@ pub fn test(
     let (rows, cols) = out.unmixed.dim();
     let bands = data.dim().2;
     let c = sum_to_one as usize;
-    // Per tested pixel: (r, c, RSS, ν, s̄).
-    let mut px: Vec<(usize, usize, f64, usize, f64)> = Vec::new();
-    for ((r, cc), ok) in out.unmixed.indexed_iter() {
-        if !ok {
-            continue;
-        }
-        let k = out.active[(r, cc)] as usize;
-        let nu = (bands + c).saturating_sub(k);
-        let rmse = out.rmse[(r, cc)] as f64;
-        if nu == 0 || !rmse.is_finite() {
-            continue;
-        }
-        let s = (0..bands).map(|b| data[(r, cc, b)] as f64).sum::<f64>() / bands as f64;
-        px.push((r, cc, rmse * rmse * bands as f64, nu, s));
-    }
+    // Per tested pixel: (r, c, RSS, ν, s̄), in raster order (rows gathered in parallel).
+    let rmse = out.rmse.as_slice().expect("standard layout");
+    let spectra = data.as_slice().expect("spectra are in standard layout");
+    let per_row: Vec<Vec<Tested>> = (0..rows)
+        .into_par_iter()
+        .map(|r| {
+            (0..cols)
+                .filter_map(|cc| {
+                    if !out.unmixed[(r, cc)] {
+                        return None;
+                    }
+                    let k = out.active[(r, cc)] as usize;
+                    let nu = (bands + c).saturating_sub(k);
+                    let rmse = rmse[r * cols + cc] as f64;
+                    if nu == 0 || !rmse.is_finite() {
+                        return None;
+                    }
+                    let px = (r * cols + cc) * bands;
+                    let spectrum = &spectra[px..px + bands];
+                    let s = spectrum.iter().map(|v| *v as f64).sum::<f64>() / bands as f64;
+                    Some((r, cc, rmse * rmse * bands as f64, nu, s))
+                })
+                .collect()
+        })
+        .collect();
+    let px = per_row.concat();
     // The median and the critical value of χ²_ν for every ν that occurs.
     let mut median_of = vec![f64::NAN; bands + c + 1];
     let mut critical = vec![f64::NAN; bands + c + 1];
@@ -174,44 +189,65 @@ fn model_error(px: &[(usize, usize, f64, usize, f64)], u: &[f64]) -> f64 {
     if px.len() < 30 {
         return 0.0;
     }
-    let mut order: Vec<usize> = (0..px.len()).collect();
-    order.sort_by(|&a, &b| px[a].4.total_cmp(&px[b].4));
+    // By s̄, ties in pixel order (what a stable sort gives), sorted in parallel.
+    let mut keyed: Vec<(f64, usize)> = px.iter().enumerate().map(|(i, p)| (p.4, i)).collect();
+    keyed.par_sort_unstable_by(|a, b| a.0.total_cmp(&b.0).then(a.1.cmp(&b.1)));
+    let order: Vec<usize> = keyed.into_iter().map(|(_, i)| i).collect();
     let third = px.len() / 3;
     let mut dark: Vec<f64> = order[..third].iter().map(|&i| u[i]).collect();
     let sigma2 = median(&mut dark).max(0.0);
     let bright = &order[px.len() - third..];
-    let mut q90 = std::collections::HashMap::new();
+    // The quantile of χ²_ν for every ν that occurs.
+    let top = px.iter().map(|p| p.3).max().unwrap_or(0);
+    let mut q90 = vec![f64::NAN; top + 1];
+    for &i in bright {
+        let nu = px[i].3;
+        if q90[nu].is_nan() {
+            q90[nu] = ChiSquared::new(nu as f64)
+                .expect("ν ≥ 1")
+                .inverse_cdf(MATCHED_QUANTILE);
+        }
+    }
     let scaled: Vec<(f64, f64)> = bright
         .iter()
-        .map(|&i| {
-            let nu = px[i].3;
-            let q = *q90.entry(nu).or_insert_with(|| {
-                ChiSquared::new(nu as f64)
-                    .expect("ν ≥ 1")
-                    .inverse_cdf(MATCHED_QUANTILE)
-            });
-            (px[i].2 / q, px[i].4 * px[i].4)
-        })
+        .map(|&i| (px[i].2 / q90[px[i].3], px[i].4 * px[i].4))
         .collect();
+    let at = ((scaled.len() as f64 * MATCHED_QUANTILE) as usize).min(scaled.len() - 1);
     let level = |k2: f64| {
         let mut v: Vec<f64> = scaled
             .iter()
             .map(|(r, s2)| r / (sigma2 + k2 * s2))
             .collect();
-        let at = ((v.len() as f64 * MATCHED_QUANTILE) as usize).min(v.len() - 1);
         *v.select_nth_unstable_by(at, f64::total_cmp).1
+    };
+    // level(k2) > 1, the bisection's question, without selecting: the at-th smallest
+    // ratio exceeds 1 exactly when at most `at` ratios are ≤ 1 — counted in parallel —
+    // unless a ratio is NaN (it orders by sign there), when the selection answers.
+    let above = |k2: f64| {
+        let (le, nan) = scaled
+            .par_iter()
+            .map(|(r, s2)| {
+                let v = r / (sigma2 + k2 * s2);
+                ((v <= 1.0) as usize, v.is_nan() as usize)
+            })
+            .reduce(|| (0, 0), |a, b| (a.0 + b.0, a.1 + b.1));
+        if nan > 0 {
+            level(k2) > 1.0
+        } else {
+            le <= at
+        }
     };
     if level(0.0) <= 1.0 {
         return 0.0;
     }
     let mut hi = 1e-6;
-    while level(hi) > 1.0 && hi < 1.0 {
+    while above(hi) && hi < 1.0 {
         hi *= 2.0;
     }
     let mut lo = 0.0;
     for _ in 0..50 {
         let mid = 0.5 * (lo + hi);
-        if level(mid) > 1.0 {
+        if above(mid) {
             lo = mid;
         } else {
             hi = mid;

@@ -40,6 +40,7 @@ pub use model::{Model, ModelError};
 pub use output::{Counts, Refit, RunOptions, StdErrors, UnmixOutput, DARK_LIMIT};
 pub use params::{ParamError, Precision, Solver, Subsets, UnmixParams};
 pub use run::{unmix, unmix_with};
+pub use subsets::DEFAULT_SUBSET_TRUNCATION;
 
 use serde::Serialize;
 

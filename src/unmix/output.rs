@@ -248,6 +248,12 @@ pub struct RunOptions {
     pub residuals: bool,
     /// The unexplained test's false-alarm probability ([`super::misfit`]).
     pub false_alarm: f64,
+    /// Subset mode: subsets whose BIC weight relative to the best is below this are left
+    /// out of the average and its covariance (0: none left out).
+    pub subset_truncation: f64,
+    /// Subset mode: solve every subset, none skipped by the residual bound (the reference
+    /// the bound is checked against; same results, slower).
+    pub exhaustive_subsets: bool,
 }
 
 impl Default for RunOptions {
@@ -258,6 +264,8 @@ impl Default for RunOptions {
             stated_noise: None,
             residuals: false,
             false_alarm: super::misfit::DEFAULT_FALSE_ALARM,
+            subset_truncation: super::DEFAULT_SUBSET_TRUNCATION,
+            exhaustive_subsets: false,
         }
     }
 }

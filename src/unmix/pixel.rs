@@ -88,6 +88,10 @@ pub(super) fn whitened_rss<T: Real, const D: usize, const FUSED: bool>(
     let mut fit = [0.0f64; D];
     for (j, col) in rcol.chunks_exact(D).enumerate() {
         let aj = a[j].widen();
+        // A member at zero adds exactly nothing (subsets hold most members at zero).
+        if aj == 0.0 {
+            continue;
+        }
         for k in 0..D {
             fit[k] = madd::<f64, FUSED>(col[k], aj, fit[k]);
         }

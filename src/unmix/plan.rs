@@ -38,6 +38,60 @@ pub(super) struct Plan<'a, T> {
     pub(super) non_negative: bool,
     pub(super) sum_to_one: f64,
     pub(super) opts: RunOptions,
+    /// Subset mode: per subset, the last vector (D values; zero when its last member
+    /// adds nothing to the span) of the Gram–Schmidt basis of its materials' whitened
+    /// columns taken in member order, and the subset of its other members (`None` for a
+    /// single member): the span of a subset is its prefix's plus that vector, for the
+    /// residual bound of [`super::subsets`]. Empty otherwise.
+    pub(super) bases: Vec<f64>,
+    pub(super) prefixes: Vec<Option<usize>>,
+}
+
+/// [`Plan::bases`] and [`Plan::prefixes`] of `subsets` (modified Gram–Schmidt on R's
+/// material columns `rcol`, D values each, in member order; a column within 1e-10 of the
+/// span of the ones before adds a zero vector).
+fn subset_bases(
+    subsets: &[u32],
+    rcol: &[f64],
+    dims: usize,
+    mat: usize,
+) -> (Vec<f64>, Vec<Option<usize>>) {
+    let materials = |mask: u32| mask & ((1u32 << mat) - 1);
+    let index: std::collections::HashMap<u32, usize> = subsets
+        .iter()
+        .enumerate()
+        .map(|(s, &m)| (materials(m), s))
+        .collect();
+    let mut out = vec![0.0f64; subsets.len() * dims];
+    let mut prefixes = Vec::with_capacity(subsets.len());
+    for &mask in subsets {
+        let members: Vec<usize> = (0..mat).filter(|j| mask & (1 << j) != 0).collect();
+        let mut basis: Vec<Vec<f64>> = Vec::new();
+        let mut last = vec![0.0; dims];
+        for &j in &members {
+            let col = &rcol[j * dims..(j + 1) * dims];
+            let scale = col.iter().map(|v| v * v).sum::<f64>().sqrt();
+            let mut v = col.to_vec();
+            for q in &basis {
+                let d: f64 = q.iter().zip(&v).map(|(a, b)| a * b).sum();
+                v.iter_mut().zip(q).for_each(|(x, q)| *x -= d * q);
+            }
+            let norm = v.iter().map(|x| x * x).sum::<f64>().sqrt();
+            last = if norm > 1e-10 * scale {
+                v.iter().map(|x| x / norm).collect()
+            } else {
+                vec![0.0; dims]
+            };
+            basis.push(last.clone());
+        }
+        let s = prefixes.len();
+        out[s * dims..(s + 1) * dims].copy_from_slice(&last);
+        let top = members.last().map_or(0, |&j| 1u32 << j);
+        let prefix = materials(mask) & !top;
+        // Every prefix of a subset of up to K members is a subset too.
+        prefixes.push((prefix != 0).then(|| index[&prefix]));
+    }
+    (out, prefixes)
 }
 
 impl<'a, T: Real> Plan<'a, T> {
@@ -45,6 +99,10 @@ impl<'a, T: Real> Plan<'a, T> {
         let (nb, mat) = (model.bands(), model.material_columns());
         let dims = model.q.ncols();
         let cast = |v: f64| T::from(v).expect("finite model values");
+        let rcol: Vec<f64> = (0..mat)
+            .flat_map(|j| (0..dims).map(move |k| model.r[(k, j)]))
+            .collect();
+        let (bases, prefixes) = subset_bases(&model.subsets, &rcol, dims, mat);
         let qt: Vec<f64> = (0..nb)
             .flat_map(|b| (0..dims).map(move |k| model.q[(b, k)]))
             .collect();
@@ -60,9 +118,9 @@ impl<'a, T: Real> Plan<'a, T> {
                 Vec::new()
             },
             qt,
-            rcol: (0..mat)
-                .flat_map(|j| (0..dims).map(move |k| model.r[(k, j)]))
-                .collect(),
+            rcol,
+            bases,
+            prefixes,
             ecol: (0..mat)
                 .flat_map(|j| (0..nb).map(move |b| model.e[(b, j)]))
                 .map(cast)

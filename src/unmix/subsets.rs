@@ -8,6 +8,10 @@ use super::pixel::{finish, fit_of, residual, skipped, whiten, whitened_rss};
 use super::plan::{Plan, Slots};
 use super::solve::{pivot, positives, Real};
 
+/// Subsets whose BIC weight exp(−ΔBIC/2) relative to the best is below this are left out
+/// of the average and of its covariance, unless the recipe says otherwise.
+pub const DEFAULT_SUBSET_TRUNCATION: f64 = 1e-6;
+
 /// Subset mode (the slow path, in f64 whatever the run's precision): every allowed subset
 /// is solved and scored by BIC (Schwarz 1978): with the noise σ known (`--noise`, or the
 /// band table's stated σ) BIC = RSS/σ² + k ln n, the Gaussian log-likelihood's χ²;
@@ -28,9 +32,21 @@ pub(super) fn rows_subsets<T: Real, const M: usize, const D: usize, const FUSED:
     let nb = plan.bands;
     let n = nb as f64;
     let known = plan.opts.noise.or(plan.opts.stated_noise).map(|s| s * s);
-    let mut scores: Vec<f64> = Vec::new();
-    let mut sols: Vec<[f64; M]> = Vec::new();
-    let mut sets: Vec<u32> = Vec::new();
+    let count = model.subsets.len();
+    let (mut scores, mut sols, mut sets) = (
+        vec![0.0f64; count],
+        vec![[0.0f64; M]; count],
+        vec![0u32; count],
+    );
+    let mut bounds: Vec<f64> = Vec::with_capacity(count);
+    let mut inside: Vec<f64> = Vec::with_capacity(count);
+    let exhaustive = plan.opts.exhaustive_subsets || plan.bases.is_empty();
+    // ΔBIC beyond which a weight is below the truncation: −2 ln t (∞ for t = 0).
+    let max_delta = if plan.opts.subset_truncation > 0.0 {
+        -2.0 * plan.opts.subset_truncation.ln()
+    } else {
+        f64::INFINITY
+    };
     let mut cov = vec![0.0f64; M * M];
     let mut out = vec![0.0f64; plan.planes * plan.planes];
     let mut scratch = vec![T::zero(); nb];
@@ -40,35 +56,78 @@ pub(super) fn rows_subsets<T: Real, const M: usize, const D: usize, const FUSED:
         }
         let z = whiten::<f64, D, FUSED>(y, &plan.qt);
         let yy: f64 = y.iter().map(|v| *v as f64 * *v as f64).sum();
-        scores.clear();
-        sols.clear();
-        sets.clear();
         let mut best_score = f64::INFINITY;
+        let mut best_index = usize::MAX;
         let mut best_out = (0u32, false, 0u16);
         let mut best_fit = (0.0f64, 0u32);
-        for (s, &allowed) in model.subsets.iter().enumerate() {
+        // A subset's RSS is at least that of the unconstrained fit in its span,
+        // yᵀy − ‖Q_sᵀz‖² (less a rounding margin), and its k at least `k_min`: a bound on
+        // its score that needs no solve. The subset of the lowest bound is solved first;
+        // any other whose bound lies more than −2 ln t (the truncation t) above the best so far
+        // is skipped: its weight is below the truncation against the final best as well,
+        // so the results equal those of solving every subset (`exhaustive_subsets`).
+        let k_min = if model.solver.sum_to_one() { 1.0 } else { 0.0 };
+        let score_of = |rss: f64, k: f64| match known {
+            Some(s2) => rss / s2 + k * n.ln(),
+            None => n * (rss.max(1e-30) / n).ln() + k * n.ln(),
+        };
+        // ‖Q_sᵀz‖² along prefixes: a subset adds one basis vector to its prefix's (which
+        // comes earlier in subset order).
+        inside.clear();
+        bounds.clear();
+        for (q, prefix) in plan.bases.chunks_exact(D).zip(&plan.prefixes) {
+            let d: f64 = q.iter().zip(&z).map(|(q, z)| q * z).sum();
+            let here = prefix.map_or(0.0, |p| inside[p]) + d * d;
+            inside.push(here);
+            bounds.push(score_of((yy - here) - 1e-9 * yy, k_min));
+        }
+        let first = if exhaustive || bounds.is_empty() {
+            0
+        } else {
+            (0..bounds.len())
+                .min_by(|&a, &b| bounds[a].total_cmp(&bounds[b]))
+                .expect("subsets")
+        };
+        for s in std::iter::once(first).chain((0..model.subsets.len()).filter(|&s| s != first)) {
+            let allowed = model.subsets[s];
+            if !exhaustive && bounds[s] - best_score > max_delta {
+                scores[s] = f64::INFINITY;
+                sols[s] = [0.0; M];
+                sets[s] = 0;
+                continue;
+            }
             let mut a = [0.0f64; M];
             let o = pivot::<f64, M, D, FUSED>(&model.table64, &z, allowed, allowed, true, &mut a);
             let am: &[f64; D] = a[..D].try_into().expect("D materials");
             let rss = whitened_rss::<f64, D, FUSED>(&z, yy, am, &plan.rcol).max(1e-30);
             let k = a.iter().filter(|v| **v > 0.0).count() as f64;
-            let score = match known {
-                Some(s2) => rss / s2 + k * n.ln(),
-                None => n * (rss / n).ln() + k * n.ln(),
-            };
-            scores.push(score);
-            sols.push(a);
-            sets.push(o.passive);
-            if score < best_score {
+            let score = score_of(rss, k);
+            scores[s] = score;
+            sols[s] = a;
+            sets[s] = o.passive;
+            // Ties go to the earlier subset, as in subset order.
+            if score < best_score || (score == best_score && s < best_index) {
                 best_score = score;
+                best_index = s;
                 best_out = (o.passive, o.enumerated, s as u16 + 1);
                 best_fit = (rss, k as u32);
             }
         }
+        // Weights exp(−ΔBIC/2), those below the truncation left out (set to 0): at most
+        // that fraction of the mean and of the mixture's covariance, per subset.
         let mut wsum = 0.0;
         let mut mean = [0.0f64; M];
-        for (score, sol) in scores.iter().zip(&sols) {
-            let w = (-(score - best_score) / 2.0).exp();
+        for (score, sol) in scores.iter_mut().zip(&sols) {
+            let delta = *score - best_score;
+            let w = if delta > max_delta {
+                0.0
+            } else {
+                (-delta / 2.0).exp()
+            };
+            *score = w;
+            if w == 0.0 {
+                continue;
+            }
             wsum += w;
             for j in 0..M {
                 mean[j] += w * sol[j];
@@ -93,9 +152,7 @@ pub(super) fn rows_subsets<T: Real, const M: usize, const D: usize, const FUSED:
         }
         if slots.um[px] {
             let mean: [f64; M] = std::array::from_fn(|j| mean[j] / wsum);
-            mixture::<M>(
-                plan, &scores, best_score, &sols, &sets, &mean, fit.sigma, &mut cov,
-            );
+            mixture::<M>(plan, &scores, &sols, &sets, &mean, fit.sigma, &mut cov);
             let sum: f64 = mean[..D].iter().sum();
             let f: [f64; D] = std::array::from_fn(|j| mean[j] / sum);
             let shade = plan
@@ -118,14 +175,12 @@ pub(super) fn rows_subsets<T: Real, const M: usize, const D: usize, const FUSED:
 
 /// The covariance of the BIC-weighted mean `mean` of the subsets' solutions: within-subset
 /// (σ²K of each subset's passive set) plus between-subset ((a_s − ā)(a_s − ā)ᵀ), weighted by
-/// exp(−ΔBIC/2) normalised; into `cov` (M × M). A subset whose set has no factor (singular)
-/// contributes its spread only.
-#[allow(clippy::too_many_arguments)]
+/// `weights` (exp(−ΔBIC/2), 0 below the truncation) normalised; into `cov` (M × M). A
+/// subset whose set has no factor (singular) contributes its spread only.
 #[inline(always)]
 fn mixture<const M: usize>(
     plan: &Plan<impl Real>,
-    scores: &[f64],
-    best: f64,
+    weights: &[f64],
     sols: &[[f64; M]],
     sets: &[u32],
     mean: &[f64; M],
@@ -136,9 +191,8 @@ fn mixture<const M: usize>(
     let spreads = &plan.model.spreads;
     let s2 = sigma * sigma;
     let mut wsum = 0.0;
-    for ((score, sol), &set) in scores.iter().zip(sols).zip(sets) {
-        let w = (-(score - best) / 2.0).exp();
-        if w < 1e-12 {
+    for ((&w, sol), &set) in weights.iter().zip(sols).zip(sets) {
+        if w == 0.0 {
             continue;
         }
         wsum += w;

@@ -16,6 +16,7 @@ mod out_folders;
 mod report;
 mod roundtrip;
 mod solar;
+mod subsets;
 mod support;
 mod targets;
 mod thermal;
