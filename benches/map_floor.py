@@ -99,6 +99,8 @@ def stages(folder):
 
 def library_matrix(cube):
     csv = os.path.join(DATA, os.path.basename(cube) + ".library.csv")
+    if os.path.exists(csv):
+        os.remove(csv)
     subprocess.run([T, "library", "export", "--bands", cube, "--out", csv], check=True,
                    stdout=subprocess.DEVNULL)
     e = np.loadtxt(csv, delimiter=",", skiprows=1)[:, 1:]
