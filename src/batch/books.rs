@@ -87,12 +87,31 @@ pub fn write_failures(
     Ok(())
 }
 
-/// Removes bookkeeping temporaries a killed batch left at the top of `out` (the cube
-/// folders clean their own).
-pub fn remove_stale(out: &Path) {
+/// The bookkeeping files a run of `shard` writes at the top of its output folder.
+fn own_books(shard: Option<Shard>) -> [String; 3] {
+    let s = suffix(shard);
+    [
+        format!("batch{s}.json"),
+        format!("manifest{s}.txt"),
+        format!("failures{s}.csv"),
+    ]
+}
+
+/// Removes the bookkeeping temporaries a killed run of the same shard left at the top of
+/// `out` (the cube folders clean their own). Only this shard's own: the shards of one
+/// archive share `out` and run at the same time, and another shard's temporary may be a
+/// file it is writing now.
+pub fn remove_stale(out: &Path, shard: Option<Shard>) {
+    let own = own_books(shard);
     for e in std::fs::read_dir(out).into_iter().flatten().flatten() {
         let p = e.path();
-        if p.is_file() && atomic::is_temporary(&e.file_name().to_string_lossy()) {
+        let name = e.file_name().to_string_lossy().into_owned();
+        // `.<name>.tmp-<pid>-<n>`: the name the temporary would have become.
+        let target = name
+            .strip_prefix('.')
+            .and_then(|n| n.split(".tmp-").next())
+            .unwrap_or("");
+        if p.is_file() && atomic::is_temporary(&name) && own.iter().any(|o| o == target) {
             let _ = std::fs::remove_file(p);
         }
     }
@@ -149,4 +168,32 @@ pub fn read_listed(dir: &Path) -> anyhow::Result<Vec<String>> {
         );
     }
     Ok(out)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn a_shard_removes_only_its_own_stale_temporaries() {
+        // Shards share the output folder and start together: shard 1 must not remove the
+        // manifest shard 2 is writing at that moment.
+        let dir = tempfile::tempdir().unwrap();
+        let names = [
+            ".manifest-shard-1-of-3.txt.tmp-11-0",
+            ".manifest-shard-2-of-3.txt.tmp-12-0",
+            ".batch-shard-1-of-3.json.tmp-11-1",
+            ".failures.csv.tmp-13-0",
+        ];
+        for n in names {
+            std::fs::write(dir.path().join(n), b"x").unwrap();
+        }
+        remove_stale(dir.path(), Some(Shard { k: 1, n: 3 }));
+        let left: Vec<bool> = names.iter().map(|n| dir.path().join(n).exists()).collect();
+        assert_eq!(left, [false, true, false, true]);
+        // An unsharded run removes the unsharded books' temporaries only.
+        remove_stale(dir.path(), None);
+        assert!(!dir.path().join(names[3]).exists());
+        assert!(dir.path().join(names[1]).exists());
+    }
 }

@@ -118,7 +118,7 @@ pub fn execute(
     use anyhow::Context as _;
     std::fs::create_dir_all(&plan.out)
         .with_context(|| format!("{}: cannot create", plan.out.display()))?;
-    books::remove_stale(&plan.out);
+    books::remove_stale(&plan.out, plan.shard);
     books::write_record(
         &plan.out,
         &plan.archive,
