@@ -32,9 +32,18 @@ pub fn suffix(shard: Option<Shard>) -> String {
     shard.map(|s| format!("-{}", s.tag())).unwrap_or_default()
 }
 
+/// The bookkeeping files a run writes at the top of its output folder, as (stem,
+/// extension): `<stem><suffix>.<extension>`.
+const BOOKS: [(&str, &str); 3] = [("batch", "json"), ("manifest", "txt"), ("failures", "csv")];
+
+/// The name of bookkeeping file `stem` of `shard` (one of [`BOOKS`]).
+fn book_name(stem: &str, ext: &str, shard: Option<Shard>) -> String {
+    format!("{stem}{}.{ext}", suffix(shard))
+}
+
 /// `failures<suffix>.csv` in `out`.
 pub fn failures_path(out: &Path, shard: Option<Shard>) -> PathBuf {
-    out.join(format!("failures{}.csv", suffix(shard)))
+    out.join(book_name("failures", "csv", shard))
 }
 
 /// Writes `batch<suffix>.json`: what this run was asked to do.
@@ -46,7 +55,7 @@ pub fn write_record(
     recipe: &Recipe,
 ) -> Result<(), WriteError> {
     crate::results::write_json(
-        &out.join(format!("batch{}.json", suffix(shard))),
+        &out.join(book_name("batch", "json", shard)),
         &serde_json::json!({
             "archive": archive.display().to_string(),
             "shard": shard.map(|s| [s.k, s.n]),
@@ -67,7 +76,7 @@ pub fn write_manifest(
         .map(|e| format!("{}\n", e.relative.display()))
         .collect();
     atomic::write_bytes(
-        &out.join(format!("manifest{}.txt", suffix(shard))),
+        &out.join(book_name("manifest", "txt", shard)),
         text.as_bytes(),
     )
 }
@@ -87,22 +96,12 @@ pub fn write_failures(
     Ok(())
 }
 
-/// The bookkeeping files a run of `shard` writes at the top of its output folder.
-fn own_books(shard: Option<Shard>) -> [String; 3] {
-    let s = suffix(shard);
-    [
-        format!("batch{s}.json"),
-        format!("manifest{s}.txt"),
-        format!("failures{s}.csv"),
-    ]
-}
-
 /// Removes the bookkeeping temporaries a killed run of the same shard left at the top of
 /// `out` (the cube folders clean their own). Only this shard's own: the shards of one
 /// archive share `out` and run at the same time, and another shard's temporary may be a
 /// file it is writing now.
 pub fn remove_stale(out: &Path, shard: Option<Shard>) {
-    let own = own_books(shard);
+    let own = BOOKS.map(|(stem, ext)| book_name(stem, ext, shard));
     for e in std::fs::read_dir(out).into_iter().flatten().flatten() {
         let p = e.path();
         let name = e.file_name().to_string_lossy().into_owned();

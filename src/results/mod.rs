@@ -111,7 +111,7 @@ pub fn write_folder(
     let steps = timings.time("write", || write_products(dir, r))?;
     timings.steps("write", &steps);
     provenance::write_timings(dir, &timings, threads)?;
-    let run = provenance::run_record_text(r)?;
+    let run = provenance::run_record_text(r);
     // The report (`--report`) goes here: after every other product, before run.json.
     before_run(&run)?;
     atomic::write_bytes(&dir.join("run.json"), run.as_bytes())
@@ -123,7 +123,7 @@ type Job<'s> = (
     Box<dyn Fn() -> Result<(), WriteError> + Send + Sync + 's>,
 );
 
-/// The data products, everything but the summary and the provenance. Each product is
+/// The data products and the summary, everything but the provenance. Each product is
 /// its own file(s) and reads only the finished result, so they are written in parallel
 /// (rayon's pool, the run's threads); each is written whole under a temporary name first
 /// ([`atomic`]), so a failure leaves no partial product under its final name. The first
@@ -139,7 +139,7 @@ fn write_products(dir: &Path, r: &CubeResult) -> Result<Vec<(&'static str, f64)>
     let mut jobs: Vec<Job> = vec![
         (
             "summary.json",
-            Box::new(|| products::summary(dir, r, Some(stderr))),
+            Box::new(|| products::summary(dir, r, stderr)),
         ),
         (
             "abundance.fits",

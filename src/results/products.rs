@@ -559,7 +559,7 @@ pub fn units_spectra(dir: &Path, r: &CubeResult, map: &UnitMap) -> Result<(), Wr
 }
 
 /// `summary.json`: the unmixing summary, with the units' part for `map`.
-pub fn summary(dir: &Path, r: &CubeResult, stderr: Option<&Array3<f32>>) -> Result<(), WriteError> {
+pub fn summary(dir: &Path, r: &CubeResult, stderr: &Array3<f32>) -> Result<(), WriteError> {
     let path = dir.join("summary.json");
     let unmixing = super::summary::unmix_summary(r, stderr);
     let Some(map) = r.units else {

@@ -136,8 +136,8 @@ pub struct RunRecord<'a> {
 }
 
 /// Builds `run.json` for a cube's results.
-pub fn run_record<'a>(r: &CubeResult<'a>) -> Result<RunRecord<'a>, WriteError> {
-    Ok(RunRecord {
+pub fn run_record<'a>(r: &CubeResult<'a>) -> RunRecord<'a> {
+    RunRecord {
         tool: "thiomap",
         version: crate::VERSION,
         command: r.command,
@@ -152,13 +152,13 @@ pub fn run_record<'a>(r: &CubeResult<'a>) -> Result<RunRecord<'a>, WriteError> {
             "quantity_assumed": "reflectance-factor",
             "abundances": "materials renormalised to sum to one without shade; shade fraction reported separately",
         }),
-    })
+    }
 }
 
 /// The text of `run.json` (pretty JSON with a final newline), the last file of a results
 /// folder.
-pub fn run_record_text(r: &CubeResult) -> Result<String, WriteError> {
-    Ok(serde_json::to_string_pretty(&run_record(r)?).expect("output types serialise") + "\n")
+pub fn run_record_text(r: &CubeResult) -> String {
+    serde_json::to_string_pretty(&run_record(r)).expect("output types serialise") + "\n"
 }
 
 /// Writes `timings.json`.

@@ -61,11 +61,8 @@ pub struct UnmixSummary<'a> {
 }
 
 /// Builds the unmixing part of `summary.json`.
-/// `stderr`: the standard-error planes when the caller has them (else computed here).
-pub fn unmix_summary<'a>(
-    r: &CubeResult<'a>,
-    stderr: Option<&ndarray::Array3<f32>>,
-) -> UnmixSummary<'a> {
+/// `stderr`: the standard-error planes ([`crate::unmix::UnmixOutput::stderr`]).
+pub fn unmix_summary<'a>(r: &CubeResult<'a>, stderr: &ndarray::Array3<f32>) -> UnmixSummary<'a> {
     let (out, model) = (r.unmixed, r.model);
     let c = out.counts;
     let (mut s, mut n) = (0.0, 0usize);

@@ -235,37 +235,6 @@ fn fit_k(points: &Array2<f64>, k: usize, seed: u64) -> Result<(Array2<f64>, f64)
     Ok((best.centroids, best.inertia))
 }
 
-/// Mean silhouette of a labelling: for each point, (b − a) / max(a, b) with a the mean
-/// distance to its own cluster and b the smallest mean distance to another cluster.
-/// The reference form, one labelling at a time; [`silhouettes`] gives the same numbers
-/// for many labellings in one pass.
-pub fn silhouette(points: ArrayView2<f64>, labels: &[usize], k: usize) -> f64 {
-    let n = points.nrows();
-    let scores: Vec<f64> = (0..n)
-        .into_par_iter()
-        .map(|i| {
-            let mut sum = vec![0.0; k];
-            let mut count = vec![0usize; k];
-            for j in 0..n {
-                if i == j {
-                    continue;
-                }
-                let d: f64 = points
-                    .row(i)
-                    .iter()
-                    .zip(points.row(j))
-                    .map(|(a, b)| (a - b) * (a - b))
-                    .sum::<f64>()
-                    .sqrt();
-                sum[labels[j]] += d;
-                count[labels[j]] += 1;
-            }
-            score(&sum, &count, labels[i])
-        })
-        .collect();
-    scores.iter().sum::<f64>() / n.max(1) as f64
-}
-
 /// One point's silhouette from its summed distances and counts per cluster.
 fn score(sum: &[f64], count: &[usize], own: usize) -> f64 {
     if count[own] == 0 {
@@ -284,7 +253,9 @@ fn score(sum: &[f64], count: &[usize], own: usize) -> f64 {
 }
 
 /// The mean silhouette of each labelling in `labellings` (labels of the same points, the
-/// t-th with `ks[t]` clusters), bit for bit as [`silhouette`] gives them one by one: every
+/// t-th with `ks[t]` clusters) — for each point (b − a) / max(a, b), a the mean distance to
+/// its own cluster and b the smallest mean distance to another — bit for bit as the
+/// one-labelling-at-a-time form (in the tests) gives them: every
 /// distance is computed once, not once per labelling, and added to each labelling's sums
 /// in the same order (j ascending), so the choice of K costs one pass over the pairs.
 pub fn silhouettes(points: ArrayView2<f64>, labellings: &[Vec<usize>], ks: &[usize]) -> Vec<f64> {
@@ -473,6 +444,37 @@ pub fn adjusted_rand_index(a: &[usize], b: &[usize]) -> f64 {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    /// Mean silhouette of a labelling: for each point, (b − a) / max(a, b) with a the mean
+    /// distance to its own cluster and b the smallest mean distance to another cluster.
+    /// The reference form, one labelling at a time, that [`silhouettes`] (many labellings
+    /// in one pass) is held to.
+    fn silhouette(points: ArrayView2<f64>, labels: &[usize], k: usize) -> f64 {
+        let n = points.nrows();
+        let scores: Vec<f64> = (0..n)
+            .into_par_iter()
+            .map(|i| {
+                let mut sum = vec![0.0; k];
+                let mut count = vec![0usize; k];
+                for j in 0..n {
+                    if i == j {
+                        continue;
+                    }
+                    let d: f64 = points
+                        .row(i)
+                        .iter()
+                        .zip(points.row(j))
+                        .map(|(a, b)| (a - b) * (a - b))
+                        .sum::<f64>()
+                        .sqrt();
+                    sum[labels[j]] += d;
+                    count[labels[j]] += 1;
+                }
+                score(&sum, &count, labels[i])
+            })
+            .collect();
+        scores.iter().sum::<f64>() / n.max(1) as f64
+    }
 
     #[test]
     fn adjusted_rand_index_of_the_textbook_example() {

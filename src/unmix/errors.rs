@@ -93,15 +93,17 @@ pub fn upper_index(p: usize, i: usize, j: usize) -> usize {
 /// member allowed but held at zero whose multiplier is within two standard deviations of
 /// zero. `allowed` gives each pixel's allowed set (the full set, or the winning subset).
 /// Returns, per pixel, the bit mask of the columns that are such boundary cases (0: none).
-/// Only for the non-negative solvers; 0 everywhere else.
+/// Only for the non-negative solvers; 0 everywhere else. `qt` is Qᵀ band-major (bands × D,
+/// as [`super::plan::Plan`] holds it), so z accumulates band by band.
 pub(crate) fn boundary(
     data: ArrayView3<f32>,
     model: &Model,
+    qt: &[f64],
     passive: ArrayView2<u16>,
     scale: ArrayView2<f32>,
     allowed: &(dyn Fn(usize, usize) -> u32 + Sync),
 ) -> Array2<u32> {
-    let (rows, cols, nb) = data.dim();
+    let (rows, cols, _) = data.dim();
     let mut flags = Array2::from_elem((rows, cols), 0u32);
     if !model.solver.non_negative() {
         return flags;
@@ -109,11 +111,6 @@ pub(crate) fn boundary(
     let (m, dims) = (model.columns(), model.q.ncols());
     let mat = model.material_columns();
     let table = &model.table64;
-    // Qᵀ as contiguous rows of D, so z accumulates band by band (the same order per k).
-    let q: Vec<f64> = (0..nb)
-        .flat_map(|b| (0..dims).map(move |k| (b, k)))
-        .map(|(b, k)| model.q[(b, k)])
-        .collect();
     flags
         .axis_iter_mut(Axis(0))
         .into_par_iter()
@@ -133,7 +130,7 @@ pub(crate) fn boundary(
                 };
                 z.iter_mut().for_each(|zk| *zk = -0.0);
                 let spectrum = data.slice(ndarray::s![r, c, ..]);
-                for (qb, &y) in q.chunks_exact(dims).zip(spectrum.iter()) {
+                for (qb, &y) in qt.chunks_exact(dims).zip(spectrum.iter()) {
                     for (zk, qbk) in z.iter_mut().zip(qb) {
                         *zk += qbk * y as f64;
                     }

@@ -55,17 +55,8 @@ pub struct PlaneStats {
     pub mean_stderr: f64,
 }
 
-/// Per-plane statistics over the unmixed pixels; `stderr` is [`UnmixOutput::stderr`] when
-/// the caller has it already (it is computed here otherwise).
-pub fn plane_stats(out: &UnmixOutput, stderr: Option<&ndarray::Array3<f32>>) -> Vec<PlaneStats> {
-    let owned;
-    let stderr = match stderr {
-        Some(e) => e,
-        None => {
-            owned = out.stderr();
-            &owned
-        }
-    };
+/// Per-plane statistics over the unmixed pixels; `stderr` is [`UnmixOutput::stderr`].
+pub fn plane_stats(out: &UnmixOutput, stderr: &ndarray::Array3<f32>) -> Vec<PlaneStats> {
     let p = out.ids.len();
     let mut n = 0usize;
     let (mut s, mut s2) = (vec![0.0f64; p], vec![0.0f64; p]);

@@ -258,10 +258,18 @@ pub fn unmix_with<T: Real>(
     let scale = Array2::from_shape_vec((rows, cols), sc).expect("sized above");
     let full = model.full_mask();
     let boundary_columns = match &subset {
-        None => boundary(data, model, passive.view(), scale.view(), &|_, _| full),
+        None => boundary(
+            data,
+            model,
+            &plan.qt,
+            passive.view(),
+            scale.view(),
+            &|_, _| full,
+        ),
         Some(pick) => boundary(
             data,
             model,
+            &plan.qt,
             passive.view(),
             scale.view(),
             &|r, c| match pick[(r, c)] {

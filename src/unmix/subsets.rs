@@ -72,16 +72,18 @@ pub(super) fn rows_subsets<T: Real, const M: usize, const D: usize, const FUSED:
             None => n * (rss.max(1e-30) / n).ln() + k * n.ln(),
         };
         // ‖Q_sᵀz‖² along prefixes: a subset adds one basis vector to its prefix's (which
-        // comes earlier in subset order).
+        // comes earlier in subset order). Not needed when every subset is solved.
         inside.clear();
         bounds.clear();
-        for (q, prefix) in plan.bases.chunks_exact(D).zip(&plan.prefixes) {
-            let d: f64 = q.iter().zip(&z).map(|(q, z)| q * z).sum();
-            let here = prefix.map_or(0.0, |p| inside[p]) + d * d;
-            inside.push(here);
-            bounds.push(score_of((yy - here) - 1e-9 * yy, k_min));
+        if !exhaustive {
+            for (q, prefix) in plan.bases.chunks_exact(D).zip(&plan.prefixes) {
+                let d: f64 = q.iter().zip(&z).map(|(q, z)| q * z).sum();
+                let here = prefix.map_or(0.0, |p| inside[p]) + d * d;
+                inside.push(here);
+                bounds.push(score_of((yy - here) - 1e-9 * yy, k_min));
+            }
         }
-        let first = if exhaustive || bounds.is_empty() {
+        let first = if exhaustive {
             0
         } else {
             (0..bounds.len())
